@@ -1,0 +1,599 @@
+"""Datasets: the data a sweep runs on, loaded from one ``[[dataset]]`` entry.
+
+A spec's dataset entry names exactly one source:
+
+* ``builtin = "iris"`` — one of scikit-learn's shipped copies (iris, wine,
+  breast_cancer);
+* ``synthetic = {...}`` — :func:`sklearn.datasets.make_classification` with
+  the given keywords (``random_state`` defaults to 0, so it is deterministic);
+* ``file = "data/x.csv"`` — the user's CSV or Parquet file, with a named
+  ``target`` column, optional ``nominal`` and ``drop`` column lists, and a
+  ``missing`` policy.
+
+Every source ends as one :class:`Dataset`: float features (nominal columns as
+category codes), integer class codes, names, and a content ``fingerprint``
+that changes with any value and is identical across runs and platforms, so
+that results computed on an earlier version of a file are never mixed with
+new ones.
+
+Only numpy is imported at module level: pandas and scikit-learn are imported
+inside the functions that need them, because ``foldsweep run`` imports this
+module on every planning step.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import math
+import os
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from sweep.errors import DatasetError, SpecError
+
+__all__ = ["DATASET_KEYS", "Dataset", "load_dataset", "validate_entry"]
+
+#: every key a ``[[dataset]]`` entry may hold -> one line for messages and docs
+DATASET_KEYS: dict[str, str] = {
+    "name": "the dataset's name in the sweep (a non-empty string)",
+    "builtin": "one of scikit-learn's shipped datasets: iris, wine, breast_cancer",
+    "synthetic": "a table of sklearn.datasets.make_classification keywords (random_state defaults to 0)",
+    "file": "a .csv or .parquet file, relative to the spec's folder",
+    "target": "files only: the column that holds the class",
+    "nominal": "files only: columns to treat as nominal (non-numeric columns are nominal anyway)",
+    "drop": "files only: columns to ignore",
+    "missing": "files only: refuse (default) | drop_rows | impute (median / most frequent)",
+}
+
+SOURCES = ("builtin", "synthetic", "file")
+FILE_ONLY_KEYS = ("target", "nominal", "drop", "missing")
+BUILTINS = ("iris", "wine", "breast_cancer")
+MISSING_POLICIES = ("refuse", "drop_rows", "impute")
+FILE_EXTENSIONS = (".csv", ".parquet")
+
+#: make_classification's keywords -> the value type a spec may give
+#: ("number_or_list": one number, or one per feature; return_X_y is ours to choose)
+SYNTHETIC_KEYS: dict[str, str] = {
+    "n_samples": "int",
+    "n_features": "int",
+    "n_informative": "int",
+    "n_redundant": "int",
+    "n_repeated": "int",
+    "n_classes": "int",
+    "n_clusters_per_class": "int",
+    "weights": "list",
+    "flip_y": "number",
+    "class_sep": "number",
+    "hypercube": "bool",
+    "shift": "number_or_list",
+    "scale": "number_or_list",
+    "shuffle": "bool",
+    "random_state": "int",
+}
+
+_FINGERPRINT_FORMAT = "foldsweep-dataset/1"
+
+
+@dataclass(frozen=True, eq=False)
+class Dataset:
+    """One dataset, ready for folds and workers.
+
+    Attributes
+    ----------
+    name : str
+        The name the spec gives it.
+    X : ndarray of float64, shape (n_samples, n_features)
+        Features; a nominal column holds category codes ``0..m-1`` as floats.
+    y : ndarray of int64, shape (n_samples,)
+        Class codes ``0..k-1``; code ``i`` is ``classes[i]``.
+    feature_names : tuple of str
+        One identifier-like name per column of ``X``.
+    nominal : tuple of bool
+        Per feature: whether it is nominal (categorical).
+    categories : tuple
+        Per feature: the sorted category names of a nominal feature, None for
+        a numeric one.
+    classes : tuple of str
+        Class names, sorted as strings.
+    fingerprint : str
+        16 hex digits of sha256 over the canonical content (values, names,
+        nominal mask, categories, classes) — not over the file's bytes and not
+        over ``name`` or ``source``.
+    source : str
+        Where it came from, in words.
+    """
+
+    name: str
+    X: np.ndarray
+    y: np.ndarray
+    feature_names: tuple[str, ...]
+    nominal: tuple[bool, ...]
+    categories: tuple[tuple[str, ...] | None, ...]
+    classes: tuple[str, ...]
+    fingerprint: str
+    source: str
+
+    @classmethod
+    def from_arrays(
+        cls,
+        name: str,
+        X: Any,
+        y: Any,
+        *,
+        feature_names: Sequence[str],
+        classes: Sequence[str],
+        nominal: Sequence[bool] | None = None,
+        categories: Sequence[Sequence[str] | None] | None = None,
+        source: str = "arrays",
+    ) -> Dataset:
+        """Build a dataset from arrays, computing its fingerprint.
+
+        Parameters
+        ----------
+        name : str
+            The dataset's name.
+        X : array-like of shape (n_samples, n_features)
+            Features (copied to read-only float64).
+        y : array-like of shape (n_samples,)
+            Class codes ``0..len(classes)-1``.
+        feature_names, classes : sequence of str
+            Column names and class names.
+        nominal, categories : sequence, optional
+            Per feature; default: every feature numeric.
+        source : str, default="arrays"
+            Where the data came from, in words.
+        """
+        X = _frozen(np.array(X, dtype=np.float64, order="C") + 0.0)  # + 0.0 folds -0.0 into 0.0
+        y = _frozen(np.array(y, dtype=np.int64))
+        p = X.shape[1] if X.ndim == 2 else 0
+        nominal_t = tuple(bool(v) for v in nominal) if nominal is not None else (False,) * p
+        categories_t = tuple(None if c is None else tuple(str(v) for v in c) for c in categories) if categories is not None else (None,) * p
+        meta = (tuple(feature_names), nominal_t, categories_t, tuple(classes))
+        _check_consistent(X, y, *meta)
+        return cls(name, X, y, *meta[:3], meta[3], _fingerprint(X, y, *meta), source)
+
+    @property
+    def n_samples(self) -> int:
+        """Number of rows."""
+        return int(self.X.shape[0])
+
+    @property
+    def n_features(self) -> int:
+        """Number of feature columns."""
+        return int(self.X.shape[1])
+
+    @property
+    def n_classes(self) -> int:
+        """Number of classes."""
+        return len(self.classes)
+
+    @property
+    def class_counts(self) -> np.ndarray:
+        """Rows per class code, ``np.bincount(y, minlength=n_classes)``."""
+        return np.bincount(self.y, minlength=self.n_classes)
+
+    def __repr__(self) -> str:
+        return (f"Dataset({self.name!r}, {self.n_samples}x{self.n_features}, "
+                f"{self.n_classes} classes, fingerprint={self.fingerprint}, source={self.source!r})")
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a.setflags(write=False)
+    return a
+
+
+def _check_consistent(X, y, feature_names, nominal, categories, classes) -> None:
+    # a programming error, not a user's: plain ValueError
+    if X.ndim != 2 or y.shape != (X.shape[0],):
+        raise ValueError(f"X must be 2-d and y 1-d of the same length, got {X.shape} and {y.shape}")
+    p = X.shape[1]
+    if not (len(feature_names) == len(nominal) == len(categories) == p):
+        raise ValueError("feature_names, nominal and categories need one entry per column of X")
+    if y.size and (y.min() < 0 or y.max() >= len(classes)):
+        raise ValueError("y must hold codes 0..len(classes)-1")
+    if list(classes) != sorted(classes):
+        raise ValueError("classes must be sorted as strings")
+
+
+def _fingerprint(X, y, feature_names, nominal, categories, classes) -> str:
+    """sha256 over canonical little-endian bytes and the names, as 16 hex digits."""
+    meta = {
+        "format": _FINGERPRINT_FORMAT,
+        "shape": list(X.shape),
+        "feature_names": list(feature_names),
+        "nominal": list(nominal),
+        "categories": [None if c is None else list(c) for c in categories],
+        "classes": list(classes),
+    }
+    h = hashlib.sha256()
+    # JSON with ensure_ascii has no NUL bytes, and the shape fixes the array
+    # lengths, so the concatenation below is unambiguous
+    h.update(json.dumps(meta, ensure_ascii=True, separators=(",", ":")).encode("ascii"))
+    h.update(b"\0X")
+    h.update(np.ascontiguousarray(X, dtype="<f8").tobytes())
+    h.update(b"\0y")
+    h.update(np.ascontiguousarray(y, dtype="<i8").tobytes())
+    return h.hexdigest()[:16]
+
+
+# --------------------------------------------------------------------------
+# validation of the entry (no I/O)
+# --------------------------------------------------------------------------
+
+def _nearest(word: str, choices: Sequence[str]) -> str:
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.5)
+    return f"; did you mean {close[0]!r}?" if close else ""
+
+
+def _choices(choices: Sequence[str]) -> str:
+    return ", ".join(choices)
+
+
+def validate_entry(entry: Mapping, where: str) -> None:
+    """Check a ``[[dataset]]`` entry's keys and value types, without reading any file.
+
+    Parameters
+    ----------
+    entry : Mapping
+        The TOML table.
+    where : str
+        Message prefix naming the spec file and the entry.
+
+    Raises
+    ------
+    SpecError
+        An unknown key, a missing or surplus source, or a value of the wrong type.
+    """
+    if not isinstance(entry, Mapping):
+        raise SpecError(f"{where}: a dataset entry must be a table, got {type(entry).__name__}")
+    for key in entry:
+        if key not in DATASET_KEYS:
+            raise SpecError(f"{where}: unknown key {key!r}{_nearest(str(key), list(DATASET_KEYS))} "
+                            f"(allowed: {_choices(DATASET_KEYS)})")
+    name = entry.get("name")
+    if not isinstance(name, str) or not name.strip():
+        raise SpecError(f"{where}: key 'name' is required and must be a non-empty string, got {name!r}")
+    given = [s for s in SOURCES if s in entry]
+    if len(given) != 1:
+        what = "none" if not given else " and ".join(repr(s) for s in given)
+        raise SpecError(f"{where}: a dataset needs exactly one of 'builtin', 'synthetic', 'file'; got {what}")
+    source = given[0]
+    if source != "file":
+        extra = [k for k in FILE_ONLY_KEYS if k in entry]
+        if extra:
+            raise SpecError(f"{where}: key {extra[0]!r} applies only to file datasets, not to {source!r} ones")
+    {"builtin": _validate_builtin, "synthetic": _validate_synthetic, "file": _validate_file}[source](entry, where)
+
+
+def _validate_builtin(entry: Mapping, where: str) -> None:
+    value = entry["builtin"]
+    if value not in BUILTINS:
+        hint = _nearest(value, BUILTINS) if isinstance(value, str) else ""
+        raise SpecError(f"{where}: key 'builtin' = {value!r} is not a built-in dataset{hint} "
+                        f"(allowed: {_choices(BUILTINS)})")
+
+
+def _validate_synthetic(entry: Mapping, where: str) -> None:
+    table = entry["synthetic"]
+    if not isinstance(table, Mapping):
+        raise SpecError(f"{where}: key 'synthetic' must be a table of make_classification keywords, "
+                        f"e.g. {{ n_samples = 300, n_classes = 3 }}, got {table!r}")
+    for key, value in table.items():
+        if key not in SYNTHETIC_KEYS:
+            raise SpecError(f"{where}: key 'synthetic.{key}' is not a make_classification keyword"
+                            f"{_nearest(str(key), list(SYNTHETIC_KEYS))} (allowed: {_choices(SYNTHETIC_KEYS)})")
+        problem = _type_problem(SYNTHETIC_KEYS[key], value)
+        if problem:
+            raise SpecError(f"{where}: key 'synthetic.{key}' must be {problem}, got {value!r}")
+
+
+def _is_int(v: Any) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_number(v: Any) -> bool:
+    return (_is_int(v) or isinstance(v, float)) and math.isfinite(v)
+
+
+def _type_problem(kind: str, value: Any) -> str:
+    """Return what ``value`` should have been, or "" when it fits ``kind``."""
+    is_list = isinstance(value, list) and value and all(_is_number(v) for v in value)
+    ok = {
+        "int": _is_int(value),
+        "number": _is_number(value),
+        "bool": isinstance(value, bool),
+        "list": is_list,
+        "number_or_list": _is_number(value) or is_list,
+    }[kind]
+    return "" if ok else {
+        "int": "an integer",
+        "number": "a finite number",
+        "bool": "true or false",
+        "list": "a non-empty list of numbers",
+        "number_or_list": "a finite number or a non-empty list of numbers",
+    }[kind]
+
+
+def _validate_file(entry: Mapping, where: str) -> None:
+    file = entry["file"]
+    if not isinstance(file, str) or not file.strip():
+        raise SpecError(f"{where}: key 'file' must be a non-empty path string, got {file!r}")
+    if Path(file).suffix.lower() not in FILE_EXTENSIONS:
+        raise SpecError(f"{where}: key 'file' = {file!r} has an unsupported extension "
+                        f"(allowed: {_choices(FILE_EXTENSIONS)})")
+    target = entry.get("target")
+    if not isinstance(target, str) or not target:
+        raise SpecError(f"{where}: key 'target' is required for a file dataset: "
+                        f"the name of the class column, got {target!r}")
+    for key in ("nominal", "drop"):
+        value = entry.get(key, [])
+        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
+            raise SpecError(f"{where}: key {key!r} must be a list of column names, got {value!r}")
+        if target in value:
+            raise SpecError(f"{where}: key {key!r} names the target column {target!r}; the target is never a feature")
+    missing = entry.get("missing", "refuse")
+    if missing not in MISSING_POLICIES:
+        hint = _nearest(missing, MISSING_POLICIES) if isinstance(missing, str) else ""
+        raise SpecError(f"{where}: key 'missing' = {missing!r} is not a policy{hint} "
+                        f"(allowed: {_choices(MISSING_POLICIES)})")
+
+
+# --------------------------------------------------------------------------
+# loading
+# --------------------------------------------------------------------------
+
+def load_dataset(entry: Mapping, *, base_dir: Path, where: str) -> Dataset:
+    """Load the dataset a ``[[dataset]]`` entry describes.
+
+    Parameters
+    ----------
+    entry : Mapping
+        The TOML table (see :data:`DATASET_KEYS`).
+    base_dir : Path
+        The folder a relative ``file`` is resolved against (the spec's folder).
+    where : str
+        Message prefix naming the spec file and the entry.
+
+    Returns
+    -------
+    Dataset
+
+    Raises
+    ------
+    SpecError
+        The entry itself is invalid (see :func:`validate_entry`).
+    DatasetError
+        The data is missing, malformed, or unusable (one class, missing values
+        under ``missing = "refuse"``, non-finite numbers, fewer than 2 rows).
+    """
+    validate_entry(entry, where)
+    name = entry["name"]
+    if "builtin" in entry:
+        return _load_builtin(name, entry["builtin"])
+    if "synthetic" in entry:
+        return _load_synthetic(name, dict(entry["synthetic"]), where)
+    return _load_file(name, entry, Path(base_dir), where)
+
+
+def sanitize_name(raw: str, index: int) -> str:
+    """Turn a column header into an identifier: ``"petal width (cm)"`` -> ``"petal_width_cm"``."""
+    name = re.sub(r"\W+", "_", str(raw)).strip("_")
+    if not name:
+        return f"feature_{index}"
+    return f"f_{name}" if name[0].isdigit() else name
+
+
+def _load_builtin(name: str, which: str) -> Dataset:
+    from sklearn import datasets as skd
+
+    bunch = getattr(skd, f"load_{which}")()
+    names = [str(c) for c in bunch.target_names]
+    classes = sorted(names)
+    # sklearn's codes follow target_names; ours follow the sorted names, so
+    # that the same data read from a file gets the same codes
+    recode = np.array([classes.index(c) for c in names], dtype=np.int64)
+    features = [sanitize_name(f, i) for i, f in enumerate(bunch.feature_names)]
+    return Dataset.from_arrays(name, bunch.data, recode[bunch.target], feature_names=features,
+                               classes=classes, source=f"scikit-learn {which}")
+
+
+def _load_synthetic(name: str, kwargs: dict[str, Any], where: str) -> Dataset:
+    from sklearn.datasets import make_classification
+
+    kwargs.setdefault("random_state", 0)
+    try:
+        X, y = make_classification(**kwargs)
+    except (ValueError, TypeError) as exc:
+        raise DatasetError(f"{where}: make_classification refused key 'synthetic': {_one_line(exc)}") from None
+    k = int(y.max()) + 1
+    width = len(str(k - 1))  # zero-padded so that sorting as strings keeps code order
+    args = ", ".join(f"{key}={kwargs[key]!r}" for key in sorted(kwargs))
+    _check_rows_and_classes(len(y), np.bincount(y, minlength=k), [str(i) for i in range(k)], "synthetic data", where)
+    return Dataset.from_arrays(name, X, y, feature_names=[f"x{i}" for i in range(X.shape[1])],
+                               classes=[f"class_{i:0{width}d}" for i in range(k)],
+                               source=f"make_classification({args})")
+
+
+def _one_line(exc: BaseException) -> str:
+    text = " ".join(str(exc).split())
+    return text or type(exc).__name__
+
+
+def _check_rows_and_classes(n: int, counts: np.ndarray, classes: Sequence[str], what: str, where: str) -> None:
+    if n < 2:
+        raise DatasetError(f"{where}: {what} has {n} row(s) left; at least 2 are needed")
+    present = [c for c, m in zip(classes, counts) if m > 0]
+    if len(present) < 2:
+        raise DatasetError(f"{where}: {what} has a single class {present[0]!r}; at least 2 classes are needed")
+
+
+def _display_path(path: Path) -> str:
+    try:
+        relative = os.path.relpath(path)
+    except ValueError:  # another drive on Windows
+        return str(path.resolve())
+    return str(path.resolve()) if relative.startswith(os.pardir) else relative
+
+
+def _load_file(name: str, entry: Mapping, base_dir: Path, where: str) -> Dataset:
+    path = base_dir / entry["file"]
+    if not path.is_file():
+        raise DatasetError(f"{where}: key 'file': no such file {str(path.resolve())!r}")
+    frame = _read_frame(path, where)
+    return _frame_to_dataset(
+        name, frame,
+        target=entry["target"],
+        nominal=list(entry.get("nominal", [])),
+        drop=list(entry.get("drop", [])),
+        missing=entry.get("missing", "refuse"),
+        source=f"file {_display_path(path)}",
+        where=where,
+    )
+
+
+def _read_frame(path: Path, where: str):
+    """Read a CSV or Parquet file into a pandas frame; a parser's complaint becomes one line."""
+    import pandas as pd
+
+    try:
+        if path.suffix.lower() == ".parquet":
+            return pd.read_parquet(path, engine="pyarrow")
+        # pandas' default float parser is correctly rounded (``float_precision``
+        # is deprecated in pandas 3), so the same text gives the same float everywhere
+        return pd.read_csv(path, low_memory=False)
+    except Exception as exc:  # pandas / pyarrow raise many types for a bad file
+        raise DatasetError(f"{where}: key 'file': cannot read {_display_path(path)!r}: {_one_line(exc)}") from None
+
+
+def _resolve_column(wanted: str, columns: list[str], key: str, where: str) -> str:
+    """Find a column by its header, or by its sanitized feature name."""
+    if wanted in columns:
+        return wanted
+    by_clean = {sanitize_name(c, i): c for i, c in enumerate(columns)}
+    if wanted in by_clean:
+        return by_clean[wanted]
+    raise DatasetError(f"{where}: key {key!r} names column {wanted!r}, which the file does not have"
+                       f"{_nearest(wanted, columns)} (columns: {_choices(columns)})")
+
+
+def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, where) -> Dataset:
+    columns = [str(c) for c in frame.columns]
+    frame = frame.set_axis(columns, axis=1)
+    target = _resolve_column(target, columns, "target", where)
+    drop = {_resolve_column(c, columns, "drop", where) for c in drop}
+    nominal = {_resolve_column(c, columns, "nominal", where) for c in nominal}
+    for key, named in (("drop", drop), ("nominal", nominal)):
+        if target in named:
+            raise DatasetError(f"{where}: key {key!r} names the target column {target!r}; the target is never a feature")
+    features = [c for c in columns if c != target and c not in drop]
+    if not features:
+        raise DatasetError(f"{where}: no feature columns are left after 'target' and 'drop' (columns: {_choices(columns)})")
+    names = _feature_names(features, columns, where)
+    frame = _apply_missing(frame[features + [target]], target, missing, where)
+    y, classes = _encode_nominal(frame[target])
+    _check_rows_and_classes(len(y), np.bincount(y, minlength=len(classes)), classes, f"target {target!r}", where)
+    X = np.empty((len(frame), len(features)), dtype=np.float64)
+    is_nominal, categories = [], []
+    for j, col in enumerate(features):
+        series = frame[col]
+        if col in nominal or not _is_numeric(series):
+            codes, cats = _encode_nominal(series)
+            X[:, j], cat = codes, tuple(cats)
+        else:
+            X[:, j], cat = _numeric(series, col, where), None
+        is_nominal.append(cat is not None)
+        categories.append(cat)
+    return Dataset.from_arrays(name, X, y, feature_names=names, classes=classes,
+                               nominal=is_nominal, categories=categories, source=source)
+
+
+def _feature_names(features: list[str], columns: list[str], where: str) -> list[str]:
+    names, seen = [], {}
+    for col in features:
+        clean = sanitize_name(col, columns.index(col))
+        if clean in seen:
+            raise DatasetError(f"{where}: columns {seen[clean]!r} and {col!r} both become feature name "
+                               f"{clean!r}; rename one or list it in 'drop'")
+        seen[clean] = col
+        names.append(clean)
+    return names
+
+
+def _is_numeric(series) -> bool:
+    from pandas.api import types
+
+    return bool(types.is_numeric_dtype(series.dtype) and not types.is_bool_dtype(series.dtype))
+
+
+def _numeric(series, col: str, where: str) -> np.ndarray:
+    values = series.to_numpy(dtype=np.float64, na_value=np.nan)
+    bad = int(np.count_nonzero(~np.isfinite(values)))
+    if bad:
+        raise DatasetError(f"{where}: column {col!r} holds {bad} non-finite value(s) (inf); only finite numbers are allowed")
+    return values
+
+
+def _canonical_text(value: Any) -> str:
+    """One spelling per value, whichever reader produced it (CSV int vs Parquet float, numpy vs Python)."""
+    if isinstance(value, (bool, np.bool_)):
+        return str(bool(value))
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        return str(int(v)) if v.is_integer() else repr(v)
+    return str(value)
+
+
+def _encode_nominal(series) -> tuple[np.ndarray, list[str]]:
+    """Codes ``0..m-1`` into the sorted canonical spellings; the series has no missing values here."""
+    import pandas as pd
+
+    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    texts = [_canonical_text(u) for u in uniques]
+    categories = sorted(set(texts))
+    position = {t: i for i, t in enumerate(categories)}
+    lookup = np.array([position[t] for t in texts], dtype=np.int64)
+    return lookup[codes], categories
+
+
+def _apply_missing(frame, target: str, policy: str, where: str):
+    counts = frame.isna().sum()
+    counts = counts[counts > 0]
+    if counts.empty:
+        return frame
+    if policy == "refuse":
+        detail = ", ".join(f"{c!r} ({int(n)})" for c, n in counts.items())
+        raise DatasetError(f"{where}: {int(counts.sum())} missing value(s) in column(s) {detail}; "
+                           f"key 'missing' = 'refuse' (allowed: {_choices(MISSING_POLICIES)})")
+    if policy == "drop_rows":
+        return frame.dropna(axis=0, how="any").reset_index(drop=True)
+    if target in counts.index:
+        raise DatasetError(f"{where}: target column {target!r} has {int(counts[target])} missing value(s); "
+                           f"'impute' never invents a class: use missing = 'drop_rows'")
+    return _impute(frame, list(counts.index), where)
+
+
+def _impute(frame, columns: list[str], where: str):
+    """Median for numeric columns, most frequent (first in sorted order on ties) for nominal ones."""
+    frame = frame.copy()
+    for col in columns:
+        series = frame[col]
+        present = series.dropna()
+        if present.empty:
+            raise DatasetError(f"{where}: column {col!r} has no values at all to impute from; list it in 'drop'")
+        if _is_numeric(series):
+            fill = float(np.median(present.to_numpy(dtype=np.float64)))
+        else:
+            codes, cats = _encode_nominal(present)
+            mode_text = cats[int(np.argmax(np.bincount(codes, minlength=len(cats))))]
+            fill = next(v for v in present if _canonical_text(v) == mode_text)
+        frame[col] = series.fillna(fill)
+    return frame

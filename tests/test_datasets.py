@@ -1,0 +1,408 @@
+"""Tests of sweep.datasets: built-ins, synthetic data, files, fingerprints, errors, demo data."""
+
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import inspect
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn import datasets as skd
+
+from sweep.datasets import (
+    DATASET_KEYS,
+    SYNTHETIC_KEYS,
+    Dataset,
+    load_dataset,
+    sanitize_name,
+    validate_entry,
+)
+from sweep.errors import DatasetError, SpecError
+
+ROOT = Path(__file__).resolve().parents[1]
+WHERE = "t.toml: dataset[0] 'd'"
+
+
+def load(entry: dict, base_dir: Path = ROOT) -> Dataset:
+    return load_dataset({"name": "d", **entry}, base_dir=base_dir, where=WHERE)
+
+
+def sample_frame() -> pd.DataFrame:
+    """A small table with every column kind a user file has."""
+    return pd.DataFrame({
+        "plot id": [f"P{i}" for i in range(8)],
+        "width (cm)": [1.5, 2.25, 3.0, 0.1, 5.5, 6.0, 7.125, 8.0],
+        "count": [3, 1, 4, 1, 5, 9, 2, 6],
+        "soil": ["loam", "clay", "sand", "clay", "loam", "sand", "clay", "loam"],
+        "irrigated": [True, False, True, True, False, False, True, False],
+        "grade": [2, 1, 2, 3, 1, 3, 2, 1],
+        "variety": ["tall", "short", "tall", "dwarf", "short", "dwarf", "tall", "short"],
+    })
+
+
+def write(frame: pd.DataFrame, path: Path) -> Path:
+    if path.suffix == ".csv":
+        frame.to_csv(path, index=False)
+    else:
+        frame.to_parquet(path, index=False)
+    return path
+
+
+def file_entry(path: Path, **extra) -> dict:
+    return {"file": path.name, "target": "variety", **extra}
+
+
+# --------------------------------------------------------------------------
+# built-ins: scikit-learn's shipped copies of the UCI datasets
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize(("which", "shape", "counts"), [
+    # Fisher 1936 / UCI iris, as documented in sklearn's load_iris().DESCR: 150 x 4, 50/50/50
+    ("iris", (150, 4), {"setosa": 50, "versicolor": 50, "virginica": 50}),
+    # UCI wine (Forina et al.), sklearn's load_wine().DESCR: 178 x 13, class_0/1/2 = 59/71/48
+    ("wine", (178, 13), {"class_0": 59, "class_1": 71, "class_2": 48}),
+    # UCI breast cancer Wisconsin (diagnostic), sklearn's load_breast_cancer().DESCR: 569 x 30, 212 malignant / 357 benign
+    ("breast_cancer", (569, 30), {"malignant": 212, "benign": 357}),
+])
+def test_builtin_matches_sklearn_and_uci_documentation(which, shape, counts):
+    data = load({"builtin": which})
+    bunch = getattr(skd, f"load_{which}")()  # reference: scikit-learn's loader
+    assert data.X.shape == shape and data.n_samples == shape[0] and data.n_features == shape[1]
+    np.testing.assert_array_equal(data.X, bunch.data)
+    # our codes follow the sorted class names; each row keeps sklearn's class name
+    np.testing.assert_array_equal(np.array(data.classes)[data.y], bunch.target_names[bunch.target])
+    assert dict(zip(data.classes, data.class_counts.tolist())) == counts
+    assert list(data.classes) == sorted(counts)
+    assert data.feature_names == tuple(sanitize_name(f, i) for i, f in enumerate(bunch.feature_names))
+    assert data.nominal == (False,) * shape[1] and data.categories == (None,) * shape[1]
+    assert data.X.dtype == np.float64 and data.y.dtype == np.int64
+    assert data.source == f"scikit-learn {which}"
+
+
+def test_feature_names_are_sanitized_to_identifiers():
+    # names from sklearn's load_iris().feature_names and load_wine().feature_names
+    assert load({"builtin": "iris"}).feature_names == (
+        "sepal_length_cm", "sepal_width_cm", "petal_length_cm", "petal_width_cm")
+    assert "od280_od315_of_diluted_wines" in load({"builtin": "wine"}).feature_names
+    assert sanitize_name("3rd leaf", 0) == "f_3rd_leaf"
+    assert sanitize_name("()", 4) == "feature_4"
+
+
+def test_arrays_are_read_only():
+    data = load({"builtin": "iris"})
+    with pytest.raises(ValueError):
+        data.X[0, 0] = 1.0
+
+
+# --------------------------------------------------------------------------
+# synthetic data
+# --------------------------------------------------------------------------
+
+def test_synthetic_equals_make_classification():
+    args = {"n_samples": 300, "n_features": 6, "n_informative": 4, "n_redundant": 0,
+            "n_classes": 3, "random_state": 7}
+    data = load({"synthetic": dict(args)})
+    X, y = skd.make_classification(**args)  # reference: scikit-learn's generator
+    np.testing.assert_array_equal(data.X, X)
+    np.testing.assert_array_equal(data.y, y)
+    assert data.classes == ("class_0", "class_1", "class_2")
+    assert data.feature_names == tuple(f"x{i}" for i in range(6))
+    assert "random_state=7" in data.source
+
+
+def test_synthetic_random_state_defaults_to_zero():
+    data = load({"synthetic": {"n_samples": 50, "n_features": 4}})
+    X, y = skd.make_classification(n_samples=50, n_features=4, random_state=0)
+    np.testing.assert_array_equal(data.X, X)
+    np.testing.assert_array_equal(data.y, y)
+
+
+def test_synthetic_class_names_sort_in_code_order_beyond_ten_classes():
+    data = load({"synthetic": {"n_samples": 240, "n_features": 8, "n_informative": 6,
+                               "n_classes": 12, "n_clusters_per_class": 1}})
+    assert data.classes[:3] == ("class_00", "class_01", "class_02")
+    assert list(data.classes) == sorted(data.classes)
+
+
+def test_synthetic_keywords_are_make_classification_keywords():
+    # reference: sklearn.datasets.make_classification's signature; return_X_y is fixed by us
+    params = set(inspect.signature(skd.make_classification).parameters) - {"return_X_y"}
+    assert set(SYNTHETIC_KEYS) == params
+
+
+# --------------------------------------------------------------------------
+# files
+# --------------------------------------------------------------------------
+
+def test_csv_and_parquet_round_trip_give_the_same_dataset(tmp_path):
+    frame = sample_frame()
+    a = load(file_entry(write(frame, tmp_path / "x.csv"), drop=["plot id"]), tmp_path)
+    b = load(file_entry(write(frame, tmp_path / "x.parquet"), drop=["plot id"]), tmp_path)
+    assert a.fingerprint == b.fingerprint
+    np.testing.assert_array_equal(a.X, b.X)
+    assert a.categories == b.categories and a.feature_names == b.feature_names
+
+
+def test_nominal_columns_get_sorted_categories_and_codes(tmp_path):
+    frame = sample_frame()
+    data = load(file_entry(write(frame, tmp_path / "x.csv"), drop=["plot id"], nominal=["grade"]), tmp_path)
+    assert data.feature_names == ("width_cm", "count", "soil", "irrigated", "grade")
+    assert data.nominal == (False, False, True, True, True)
+    assert data.categories[2] == ("clay", "loam", "sand")
+    assert data.categories[3] == ("False", "True")
+    assert data.categories[4] == ("1", "2", "3")
+    soil = np.array(data.categories[2])[data.X[:, 2].astype(int)]
+    np.testing.assert_array_equal(soil, frame["soil"].to_numpy())
+    np.testing.assert_array_equal(data.X[:, 0], frame["width (cm)"].to_numpy())
+    assert data.classes == ("dwarf", "short", "tall")
+    np.testing.assert_array_equal(np.array(data.classes)[data.y], frame["variety"].to_numpy())
+    assert data.source.startswith("file ") and data.source.endswith("x.csv")
+
+
+def test_columns_can_be_named_by_header_or_feature_name(tmp_path):
+    path = write(sample_frame(), tmp_path / "x.csv")
+    a = load(file_entry(path, drop=["plot id", "width (cm)"]), tmp_path)
+    b = load(file_entry(path, drop=["plot_id", "width_cm"]), tmp_path)
+    assert a.fingerprint == b.fingerprint and "width_cm" not in a.feature_names
+
+
+def test_changing_one_value_changes_the_fingerprint(tmp_path):
+    frame = sample_frame()
+    base = load(file_entry(write(frame, tmp_path / "a.csv")), tmp_path).fingerprint
+    numeric = frame.copy()
+    numeric.loc[3, "width (cm)"] = 0.2
+    label = frame.copy()
+    label.loc[0, "variety"] = "short"
+    renamed = frame.copy()  # same codes, other category name: recoding must show
+    renamed["soil"] = renamed["soil"].replace({"sand": "silt"})
+    header = frame.rename(columns={"count": "tally"})
+    others = [load(file_entry(write(f, tmp_path / f"{i}.csv")), tmp_path).fingerprint
+              for i, f in enumerate((numeric, label, renamed, header))]
+    assert base not in others and len(set(others)) == 4
+
+
+def test_fingerprint_ignores_name_and_source_and_follows_the_documented_recipe():
+    X = np.array([[1.0, 0.0], [2.5, 1.0], [-0.0, 1.0]])
+    kwargs = dict(feature_names=["a", "b"], classes=["no", "yes"], nominal=[False, True],
+                  categories=[None, ["x", "y"]])
+    one = Dataset.from_arrays("one", X, [0, 1, 1], source="here", **kwargs)
+    two = Dataset.from_arrays("two", X, [0, 1, 1], source="there", **kwargs)
+    assert one.fingerprint == two.fingerprint
+    # the recipe written out independently (our own format, see sweep.datasets._fingerprint)
+    meta = {"format": "foldsweep-dataset/1", "shape": [3, 2], "feature_names": ["a", "b"],
+            "nominal": [False, True], "categories": [None, ["x", "y"]], "classes": ["no", "yes"]}
+    h = hashlib.sha256(json.dumps(meta, separators=(",", ":")).encode())
+    h.update(b"\0X" + np.array([[1.0, 0.0], [2.5, 1.0], [0.0, 1.0]], dtype="<f8").tobytes())
+    h.update(b"\0y" + np.array([0, 1, 1], dtype="<i8").tobytes())
+    assert one.fingerprint == h.hexdigest()[:16]
+
+
+def test_fingerprint_is_identical_in_another_process():
+    code = ("from pathlib import Path; from sweep.datasets import load_dataset; "
+            "print(load_dataset({'name': 'w', 'builtin': 'wine'}, base_dir=Path('.'), where='w').fingerprint)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True,
+                         env={"PYTHONPATH": str(ROOT), "PYTHONHASHSEED": "123"})
+    assert out.stdout.strip() == load({"builtin": "wine"}).fingerprint
+
+
+def test_module_import_does_not_import_pandas_or_sklearn():
+    code = "import sys, sweep.datasets; print(sorted(m for m in ('pandas', 'sklearn') if m in sys.modules))"
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True,
+                         env={"PYTHONPATH": str(ROOT)})
+    assert out.stdout.strip() == "[]"
+
+
+# --------------------------------------------------------------------------
+# missing values
+# --------------------------------------------------------------------------
+
+def frame_with_gaps() -> pd.DataFrame:
+    frame = sample_frame().drop(columns=["plot id"])
+    frame["width (cm)"] = frame["width (cm)"].astype(float)
+    frame.loc[[1, 4], "width (cm)"] = np.nan
+    frame["soil"] = frame["soil"].astype(object)
+    frame.loc[6, "soil"] = None
+    return frame
+
+
+def test_missing_values_are_refused_by_default(tmp_path):
+    path = write(frame_with_gaps(), tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': 3 missing value\(s\) in column\(s\) "
+                                           r"'width \(cm\)' \(2\), 'soil' \(1\); .*refuse, drop_rows, impute"):
+        load(file_entry(path), tmp_path)
+
+
+def test_missing_drop_rows(tmp_path):
+    frame = frame_with_gaps()
+    data = load(file_entry(write(frame, tmp_path / "x.csv"), missing="drop_rows"), tmp_path)
+    kept = frame.dropna()  # reference: pandas' dropna
+    assert data.n_samples == len(kept) == 5
+    np.testing.assert_array_equal(data.X[:, 0], kept["width (cm)"].to_numpy())
+
+
+def test_missing_impute_median_and_most_frequent(tmp_path):
+    frame = frame_with_gaps()
+    data = load(file_entry(write(frame, tmp_path / "x.parquet"), missing="impute"), tmp_path)
+    width = frame["width (cm)"]
+    # reference: numpy's median of the present values
+    assert data.X[1, 0] == data.X[4, 0] == np.median(width.dropna())
+    # most frequent of the present soils: clay 2, loam 3, sand 2 -> loam (pandas' mode)
+    assert frame["soil"].mode().tolist() == ["loam"]
+    assert data.categories[2][int(data.X[6, 2])] == "loam"
+
+
+def test_impute_never_invents_a_class(tmp_path):
+    frame = sample_frame()
+    frame.loc[2, "variety"] = None
+    path = write(frame, tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"target column 'variety' has 1 missing value.*drop_rows"):
+        load(file_entry(path, missing="impute"), tmp_path)
+
+
+# --------------------------------------------------------------------------
+# the error catalogue: one line, prefixed with `where`, naming key and choices
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize(("entry", "pattern"), [
+    ({"name": "d", "builtin": "iris", "targt": "x"}, r"unknown key 'targt'; did you mean 'target'\? \(allowed: name, builtin"),
+    ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file'; got none"),
+    ({"name": "d", "builtin": "iris", "file": "a.csv"}, r"a dataset needs exactly one of .*; got 'builtin' and 'file'"),
+    ({"builtin": "iris"}, r"key 'name' is required"),
+    ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer\)"),
+    ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file datasets"),
+    ({"name": "d", "synthetic": {"n_sample": 10}}, r"key 'synthetic.n_sample' is not a make_classification keyword; did you mean 'n_samples'\?"),
+    ({"name": "d", "synthetic": {"n_samples": 10.5}}, r"key 'synthetic.n_samples' must be an integer, got 10.5"),
+    ({"name": "d", "synthetic": {"random_state": True}}, r"key 'synthetic.random_state' must be an integer"),
+    ({"name": "d", "synthetic": 3}, r"key 'synthetic' must be a table"),
+    ({"name": "d", "file": "a.xlsx", "target": "y"}, r"key 'file' = 'a.xlsx' has an unsupported extension \(allowed: \.csv, \.parquet\)"),
+    ({"name": "d", "file": "a.csv"}, r"key 'target' is required for a file dataset"),
+    ({"name": "d", "file": "a.csv", "target": "y", "drop": "z"}, r"key 'drop' must be a list of column names"),
+    ({"name": "d", "file": "a.csv", "target": "y", "nominal": ["y"]}, r"key 'nominal' names the target column 'y'"),
+    ({"name": "d", "file": "a.csv", "target": "y", "missing": "drop"}, r"key 'missing' = 'drop' is not a policy; did you mean 'drop_rows'\? \(allowed: refuse, drop_rows, impute\)"),
+])
+def test_validate_entry_errors(entry, pattern):
+    with pytest.raises(SpecError, match=r"^t\.toml: dataset\[0\] 'd': " + pattern):
+        validate_entry(entry, WHERE)
+
+
+def test_every_key_is_documented_and_valid_entries_pass():
+    assert set(DATASET_KEYS) == {"name", "builtin", "synthetic", "file", "target", "nominal", "drop", "missing"}
+    validate_entry({"name": "d", "file": "x.parquet", "target": "y", "nominal": ["a"], "drop": [], "missing": "impute"}, WHERE)
+    validate_entry({"name": "d", "synthetic": {"weights": [0.3, 0.7], "shift": [0.0, 1.0], "hypercube": False}}, WHERE)
+
+
+def test_file_missing_names_the_full_path(tmp_path):
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': key 'file': no such file '"
+                                           + str(tmp_path.resolve() / "nope.csv").replace("\\", "\\\\") + "'"):
+        load({"file": "nope.csv", "target": "y"}, tmp_path)
+
+
+def test_malformed_csv_reports_the_parser_in_one_line(tmp_path):
+    (tmp_path / "x.csv").write_text("a,variety\n1,u\n2,v,7,8\n")
+    with pytest.raises(DatasetError, match=r"key 'file': cannot read .*x\.csv'.*Expected 2 fields in line 3") as info:
+        load(file_entry(tmp_path / "x.csv"), tmp_path)
+    assert "\n" not in str(info.value)
+
+
+def test_malformed_parquet_reports_the_parser(tmp_path):
+    (tmp_path / "x.parquet").write_bytes(b"not a parquet file at all")
+    with pytest.raises(DatasetError, match=r"key 'file': cannot read .*x\.parquet'.*: \S"):
+        load(file_entry(tmp_path / "x.parquet"), tmp_path)
+
+
+def test_empty_csv_is_unreadable(tmp_path):
+    (tmp_path / "x.csv").write_text("")
+    with pytest.raises(DatasetError, match=r"cannot read .*No columns to parse"):
+        load(file_entry(tmp_path / "x.csv"), tmp_path)
+
+
+def test_target_column_missing_lists_the_columns(tmp_path):
+    path = write(sample_frame(), tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"key 'target' names column 'varieti', which the file does not have; "
+                                           r"did you mean 'variety'\? \(columns: plot id, width \(cm\), count"):
+        load({"file": "x.csv", "target": "varieti"}, tmp_path)
+
+
+@pytest.mark.parametrize("key", ["nominal", "drop"])
+def test_nominal_or_drop_naming_a_missing_column(tmp_path, key):
+    path = write(sample_frame(), tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=rf"key '{key}' names column 'sol', which the file does not have; did you mean 'soil'"):
+        load(file_entry(path, **{key: ["sol"]}), tmp_path)
+
+
+def test_a_single_class_is_refused(tmp_path):
+    frame = sample_frame().assign(variety="tall")
+    path = write(frame, tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"target 'variety' has a single class 'tall'; at least 2"):
+        load(file_entry(path), tmp_path)
+
+
+def test_non_finite_numbers_are_refused(tmp_path):
+    frame = sample_frame()
+    frame.loc[5, "width (cm)"] = np.inf
+    path = write(frame, tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"column 'width \(cm\)' holds 1 non-finite value"):
+        load(file_entry(path), tmp_path)
+
+
+def test_fewer_than_two_rows_are_refused(tmp_path):
+    path = write(sample_frame().head(1), tmp_path / "x.parquet")
+    with pytest.raises(DatasetError, match=r"target 'variety' has 1 row\(s\) left; at least 2"):
+        load(file_entry(path), tmp_path)
+
+
+def test_no_feature_left(tmp_path):
+    path = write(sample_frame()[["plot id", "variety"]], tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"no feature columns are left"):
+        load(file_entry(path, drop=["plot id"]), tmp_path)
+
+
+def test_two_headers_with_one_feature_name(tmp_path):
+    frame = pd.DataFrame({"a b": [1, 2], "a_b": [3, 4], "variety": ["u", "v"]})
+    path = write(frame, tmp_path / "x.csv")
+    with pytest.raises(DatasetError, match=r"columns 'a b' and 'a_b' both become feature name 'a_b'"):
+        load(file_entry(path), tmp_path)
+
+
+def test_make_classification_refusal_is_a_dataset_error():
+    # sklearn requires n_informative + n_redundant + n_repeated <= n_features (make_classification's docs)
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': make_classification refused key 'synthetic': "
+                                           r"Number of informative, redundant and repeated features must sum"):
+        load({"synthetic": {"n_features": 3, "n_informative": 3, "n_redundant": 2}})
+
+
+# --------------------------------------------------------------------------
+# the demo data
+# --------------------------------------------------------------------------
+
+def _demo_script():
+    spec = importlib.util.spec_from_file_location("make_demo_data", ROOT / "sweeps" / "make_demo_data.py")
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
+
+
+def test_shipped_demo_csv_equals_the_generator_output(tmp_path):
+    written = _demo_script().write_demo_data(tmp_path)
+    assert written.read_bytes() == (ROOT / "sweeps" / "data" / "glasshouse.csv").read_bytes()
+
+
+def test_demo_data_loads_and_is_learnable_but_not_trivial():
+    data = load({"file": "data/glasshouse.csv", "target": "regime", "drop": ["tray_id"]}, ROOT / "sweeps")
+    assert data.n_samples == 360 and data.classes == ("regime_a", "regime_b", "regime_c")
+    assert data.feature_names[0] == "bench" and data.categories[0] == ("centre", "north", "south")
+    assert data.nominal == (True,) + (False,) * 5
+    from sklearn.model_selection import StratifiedKFold, cross_val_score
+    from sklearn.naive_bayes import GaussianNB
+
+    # the scenario is built for ~75-90% accuracy (design target, common practice for a demo):
+    # scikit-learn's Gaussian naive Bayes as a reference classifier must land in that band
+    cv = StratifiedKFold(5, shuffle=True, random_state=0)
+    accuracy = cross_val_score(GaussianNB(), data.X, data.y, cv=cv).mean()
+    assert 0.75 <= accuracy <= 0.90
