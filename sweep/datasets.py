@@ -38,7 +38,16 @@ import numpy as np
 
 from sweep.errors import DatasetError, SpecError
 
-__all__ = ["DATASET_KEYS", "Dataset", "load_dataset", "validate_entry"]
+__all__ = [
+    "BUILTINS",
+    "DATASET_KEYS",
+    "MISSING_POLICIES",
+    "SYNTHETIC_KEYS",
+    "Dataset",
+    "load_dataset",
+    "sanitize_name",
+    "validate_entry",
+]
 
 #: every key a ``[[dataset]]`` entry may hold -> one line for messages and docs
 DATASET_KEYS: dict[str, str] = {
@@ -49,7 +58,8 @@ DATASET_KEYS: dict[str, str] = {
     "target": "files only: the column that holds the class",
     "nominal": "files only: columns to treat as nominal (non-numeric columns are nominal anyway)",
     "drop": "files only: columns to ignore",
-    "missing": "files only: refuse (default) | drop_rows | impute (median / most frequent)",
+    "missing": ("files only: what to do with empty cells (and pandas' NA spellings such as NA, NaN, null): "
+                "refuse (default) | drop_rows | impute (median for numeric, most frequent for nominal)"),
 }
 
 SOURCES = ("builtin", "synthetic", "file")
@@ -390,18 +400,66 @@ def sanitize_name(raw: str, index: int) -> str:
     return f"f_{name}" if name[0].isdigit() else name
 
 
-def _load_builtin(name: str, which: str) -> Dataset:
-    from sklearn import datasets as skd
+#: scikit-learn's shipped data files and the feature names its loaders give them
+_BREAST_CANCER_MEASURES = ("radius", "texture", "perimeter", "area", "smoothness", "compactness",
+                           "concavity", "concave points", "symmetry", "fractal dimension")
+_BUILTIN_FILES: dict[str, tuple[str, tuple[str, ...]]] = {
+    "iris": ("iris.csv", ("sepal length (cm)", "sepal width (cm)", "petal length (cm)", "petal width (cm)")),
+    "wine": ("wine_data.csv", ("alcohol", "malic_acid", "ash", "alcalinity_of_ash", "magnesium",
+                               "total_phenols", "flavanoids", "nonflavanoid_phenols", "proanthocyanins",
+                               "color_intensity", "hue", "od280/od315_of_diluted_wines", "proline")),
+    "breast_cancer": ("breast_cancer.csv", tuple(
+        [f"mean {m}" for m in _BREAST_CANCER_MEASURES] + [f"{m} error" for m in _BREAST_CANCER_MEASURES]
+        + [f"worst {m}" for m in _BREAST_CANCER_MEASURES])),
+}
 
-    bunch = getattr(skd, f"load_{which}")()
-    names = [str(c) for c in bunch.target_names]
-    classes = sorted(names)
+
+def _load_builtin(name: str, which: str) -> Dataset:
+    found = _read_shipped_csv(which)
+    if found is None:  # the shipped layout changed: let scikit-learn's loader read it
+        from sklearn import datasets as skd
+
+        bunch = getattr(skd, f"load_{which}")()
+        found = (bunch.data, bunch.target, [str(c) for c in bunch.target_names], list(bunch.feature_names))
+    data, target, target_names, raw_features = found
+    classes = sorted(target_names)
     # sklearn's codes follow target_names; ours follow the sorted names, so
     # that the same data read from a file gets the same codes
-    recode = np.array([classes.index(c) for c in names], dtype=np.int64)
-    features = [sanitize_name(f, i) for i, f in enumerate(bunch.feature_names)]
-    return Dataset.from_arrays(name, bunch.data, recode[bunch.target], feature_names=features,
+    recode = np.array([classes.index(c) for c in target_names], dtype=np.int64)
+    features = [sanitize_name(f, i) for i, f in enumerate(raw_features)]
+    return Dataset.from_arrays(name, data, recode[target], feature_names=features,
                                classes=classes, source=f"scikit-learn {which}")
+
+
+def _read_shipped_csv(which: str):
+    """Read scikit-learn's shipped copy directly, as its loader does (csv + float).
+
+    Importing ``sklearn.datasets`` costs seconds and runs at every planning
+    step; reading its 30 kB file costs milliseconds. Returns None when the
+    file is not where, or not in the layout, expected.
+    """
+    import csv
+    import importlib.util
+
+    spec = importlib.util.find_spec("sklearn")  # locates the package without importing it
+    if spec is None or not spec.submodule_search_locations:
+        return None
+    file, features = _BUILTIN_FILES[which]
+    path = Path(list(spec.submodule_search_locations)[0]) / "datasets" / "data" / file
+    try:
+        with open(path, newline="", encoding="utf-8") as handle:
+            rows = list(csv.reader(handle))
+        n, p, names = int(rows[0][0]), int(rows[0][1]), rows[0][2:]
+        body = rows[1:]
+        if p != len(features) or len(body) != n or any(len(r) != p + 1 for r in body):
+            return None
+        data = np.array([[float(v) for v in r[:p]] for r in body], dtype=np.float64)
+        target = np.array([int(r[p]) for r in body], dtype=np.int64)
+    except (OSError, ValueError, IndexError):
+        return None
+    if target.min() < 0 or target.max() >= len(names):
+        return None
+    return data, target, names, list(features)
 
 
 def _load_synthetic(name: str, kwargs: dict[str, Any], where: str) -> Dataset:
@@ -412,13 +470,18 @@ def _load_synthetic(name: str, kwargs: dict[str, Any], where: str) -> Dataset:
         X, y = make_classification(**kwargs)
     except (ValueError, TypeError) as exc:
         raise DatasetError(f"{where}: make_classification refused key 'synthetic': {_one_line(exc)}") from None
-    k = int(y.max()) + 1
+    k = int(kwargs.get("n_classes", 2))
     width = len(str(k - 1))  # zero-padded so that sorting as strings keeps code order
+    classes = [f"class_{i:0{width}d}" for i in range(k)]
+    counts = np.bincount(y, minlength=k)
+    _check_rows_and_classes(len(y), counts, classes, "synthetic data", where)
+    if counts.min() == 0:
+        absent = classes[int(np.argmin(counts))]
+        raise DatasetError(f"{where}: key 'synthetic': make_classification produced no row of {absent}; "
+                           f"raise n_samples or change weights")
     args = ", ".join(f"{key}={kwargs[key]!r}" for key in sorted(kwargs))
-    _check_rows_and_classes(len(y), np.bincount(y, minlength=k), [str(i) for i in range(k)], "synthetic data", where)
     return Dataset.from_arrays(name, X, y, feature_names=[f"x{i}" for i in range(X.shape[1])],
-                               classes=[f"class_{i:0{width}d}" for i in range(k)],
-                               source=f"make_classification({args})")
+                               classes=classes, source=f"make_classification({args})")
 
 
 def _one_line(exc: BaseException) -> str:
@@ -428,7 +491,7 @@ def _one_line(exc: BaseException) -> str:
 
 def _check_rows_and_classes(n: int, counts: np.ndarray, classes: Sequence[str], what: str, where: str) -> None:
     if n < 2:
-        raise DatasetError(f"{where}: {what} has {n} row(s) left; at least 2 are needed")
+        raise DatasetError(f"{where}: {what} has {n} row(s); at least 2 are needed")
     present = [c for c, m in zip(classes, counts) if m > 0]
     if len(present) < 2:
         raise DatasetError(f"{where}: {what} has a single class {present[0]!r}; at least 2 classes are needed")
@@ -496,7 +559,7 @@ def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, wh
     if not features:
         raise DatasetError(f"{where}: no feature columns are left after 'target' and 'drop' (columns: {_choices(columns)})")
     names = _feature_names(features, columns, where)
-    frame = _apply_missing(frame[features + [target]], target, missing, where)
+    frame = _apply_missing(frame[features + [target]], target, missing, nominal, where)
     y, classes = _encode_nominal(frame[target])
     _check_rows_and_classes(len(y), np.bincount(y, minlength=len(classes)), classes, f"target {target!r}", where)
     X = np.empty((len(frame), len(features)), dtype=np.float64)
@@ -564,7 +627,7 @@ def _encode_nominal(series) -> tuple[np.ndarray, list[str]]:
     return lookup[codes], categories
 
 
-def _apply_missing(frame, target: str, policy: str, where: str):
+def _apply_missing(frame, target: str, policy: str, nominal: set[str], where: str):
     counts = frame.isna().sum()
     counts = counts[counts > 0]
     if counts.empty:
@@ -578,10 +641,10 @@ def _apply_missing(frame, target: str, policy: str, where: str):
     if target in counts.index:
         raise DatasetError(f"{where}: target column {target!r} has {int(counts[target])} missing value(s); "
                            f"'impute' never invents a class: use missing = 'drop_rows'")
-    return _impute(frame, list(counts.index), where)
+    return _impute(frame, list(counts.index), nominal, where)
 
 
-def _impute(frame, columns: list[str], where: str):
+def _impute(frame, columns: list[str], nominal: set[str], where: str):
     """Median for numeric columns, most frequent (first in sorted order on ties) for nominal ones."""
     frame = frame.copy()
     for col in columns:
@@ -589,7 +652,7 @@ def _impute(frame, columns: list[str], where: str):
         present = series.dropna()
         if present.empty:
             raise DatasetError(f"{where}: column {col!r} has no values at all to impute from; list it in 'drop'")
-        if _is_numeric(series):
+        if col not in nominal and _is_numeric(series):
             fill = float(np.median(present.to_numpy(dtype=np.float64)))
         else:
             codes, cats = _encode_nominal(present)

@@ -23,6 +23,7 @@ from sweep.datasets import (
     sanitize_name,
     validate_entry,
 )
+from sweep import datasets as datasets_module
 from sweep.errors import DatasetError, SpecError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -83,6 +84,23 @@ def test_builtin_matches_sklearn_and_uci_documentation(which, shape, counts):
     assert data.nominal == (False,) * shape[1] and data.categories == (None,) * shape[1]
     assert data.X.dtype == np.float64 and data.y.dtype == np.int64
     assert data.source == f"scikit-learn {which}"
+
+
+@pytest.mark.parametrize("which", ["iris", "wine", "breast_cancer"])
+def test_builtin_fallback_through_sklearns_loader_gives_the_same_dataset(which, monkeypatch):
+    fast = load({"builtin": which})
+    monkeypatch.setattr(datasets_module, "_read_shipped_csv", lambda which: None)
+    slow = load({"builtin": which})
+    assert slow.fingerprint == fast.fingerprint and slow.feature_names == fast.feature_names
+
+
+def test_loading_a_builtin_does_not_import_sklearn():
+    code = ("import sys; from pathlib import Path; from sweep.datasets import load_dataset; "
+            "load_dataset({'name': 'b', 'builtin': 'breast_cancer'}, base_dir=Path('.'), where='w'); "
+            "print('sklearn' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True,
+                         env={"PYTHONPATH": str(ROOT)})
+    assert out.stdout.strip() == "False"
 
 
 def test_feature_names_are_sanitized_to_identifiers():
@@ -257,6 +275,32 @@ def test_missing_impute_median_and_most_frequent(tmp_path):
     assert data.categories[2][int(data.X[6, 2])] == "loam"
 
 
+def test_impute_uses_most_frequent_for_a_numeric_column_declared_nominal(tmp_path):
+    frame = sample_frame()
+    frame["grade"] = frame["grade"].astype(float)
+    frame.loc[0, "grade"] = np.nan  # the rest: 1, 2, 3, 1, 3, 2, 1 -> most frequent 1, median 2
+    data = load(file_entry(write(frame, tmp_path / "x.csv"), nominal=["grade"], drop=["plot id"],
+                           missing="impute"), tmp_path)
+    grade = data.feature_names.index("grade")
+    assert data.categories[grade] == ("1", "2", "3")  # 1.0 read back from CSV is spelt as the integer
+    assert data.categories[grade][int(data.X[0, grade])] == "1"
+
+
+def test_impute_fills_a_boolean_column_with_gaps(tmp_path):
+    frame = sample_frame().astype({"irrigated": object})
+    frame.loc[[0, 1], "irrigated"] = None  # rest: True, True, False, False, True, False -> tie, first sorted: False
+    data = load(file_entry(write(frame, tmp_path / "x.csv"), missing="impute"), tmp_path)
+    col = data.feature_names.index("irrigated")
+    assert data.categories[col] == ("False", "True")
+    assert data.X[0, col] == data.X[1, col] == 0.0
+
+
+def test_impute_a_column_without_any_value(tmp_path):
+    frame = sample_frame().assign(empty=np.nan)
+    with pytest.raises(DatasetError, match=r"column 'empty' has no values at all to impute from; list it in 'drop'"):
+        load(file_entry(write(frame, tmp_path / "x.csv"), missing="impute"), tmp_path)
+
+
 def test_impute_never_invents_a_class(tmp_path):
     frame = sample_frame()
     frame.loc[2, "variety"] = None
@@ -316,6 +360,12 @@ def test_malformed_parquet_reports_the_parser(tmp_path):
         load(file_entry(tmp_path / "x.parquet"), tmp_path)
 
 
+def test_csv_that_is_not_utf8_is_unreadable(tmp_path):
+    (tmp_path / "x.csv").write_bytes("a,variety\n1,\u00e9t\u00e9\n".encode("utf-16"))
+    with pytest.raises(DatasetError, match=r"cannot read .*x\.csv'.*codec can't decode"):
+        load(file_entry(tmp_path / "x.csv"), tmp_path)
+
+
 def test_empty_csv_is_unreadable(tmp_path):
     (tmp_path / "x.csv").write_text("")
     with pytest.raises(DatasetError, match=r"cannot read .*No columns to parse"):
@@ -353,7 +403,7 @@ def test_non_finite_numbers_are_refused(tmp_path):
 
 def test_fewer_than_two_rows_are_refused(tmp_path):
     path = write(sample_frame().head(1), tmp_path / "x.parquet")
-    with pytest.raises(DatasetError, match=r"target 'variety' has 1 row\(s\) left; at least 2"):
+    with pytest.raises(DatasetError, match=r"target 'variety' has 1 row\(s\); at least 2"):
         load(file_entry(path), tmp_path)
 
 
@@ -368,6 +418,13 @@ def test_two_headers_with_one_feature_name(tmp_path):
     path = write(frame, tmp_path / "x.csv")
     with pytest.raises(DatasetError, match=r"columns 'a b' and 'a_b' both become feature name 'a_b'"):
         load(file_entry(path), tmp_path)
+
+
+def test_synthetic_with_an_absent_class_is_refused():
+    # make_classification's weights give class proportions; 0.0 means no row of that class
+    with pytest.raises(DatasetError, match=r"key 'synthetic': make_classification produced no row of class_2"):
+        load({"synthetic": {"n_samples": 60, "n_classes": 3, "n_informative": 3, "weights": [0.5, 0.5, 0.0],
+                            "flip_y": 0.0}})
 
 
 def test_make_classification_refusal_is_a_dataset_error():
