@@ -1,0 +1,167 @@
+"""The ``foldsweep`` command.
+
+::
+
+    foldsweep run SPEC [--workers N] [--backend joblib|dask] [--scheduler ADDR] [--retry-failed] [--claim N]
+    foldsweep status SPEC [--json]
+    foldsweep results SPEC [--format csv|parquet|json] [--out FILE]
+    foldsweep best | table | compare | rank | plot SPEC ...      (see sweep.report_cli)
+
+Bad input of any kind ends with one line on standard error and exit code 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from typing import Any, Sequence
+
+from sweep.errors import FoldsweepError
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERRUPTED = 130
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="foldsweep", description="Cross-validation sweeps of fuzzy rule-based "
+                                     "classifiers: plan, run, resume, compare.")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    run = sub.add_parser("run", help="run every pending job of a sweep (resumes where it stopped)")
+    run.add_argument("spec", help="the sweep's TOML spec")
+    run.add_argument("--workers", type=_positive, default=None, help="jobs at once (default: all cores)")
+    run.add_argument("--backend", choices=("joblib", "dask"), default="joblib", help="where jobs run")
+    run.add_argument("--scheduler", default=None, help="address of an existing dask scheduler (tcp://HOST:PORT)")
+    run.add_argument("--retry-failed", action="store_true", help="run failed jobs again")
+    run.add_argument("--claim", type=_positive, default=None, help="jobs taken from the tracker at a time")
+    run.add_argument("--accept-changed-data", action="store_true",
+                     help="plan new jobs for a dataset whose content changed since earlier runs")
+    run.add_argument("--progress", choices=("auto", "bar", "lines", "none"), default="auto")
+    run.add_argument("--json", action="store_true", help="print the summary as JSON")
+    run.set_defaults(func=cmd_run)
+
+    status = sub.add_parser("status", help="jobs per state, and failures grouped by message")
+    status.add_argument("spec")
+    status.add_argument("--json", action="store_true")
+    status.set_defaults(func=cmd_status)
+
+    results = sub.add_parser("results", help="one row per finished job")
+    results.add_argument("spec")
+    results.add_argument("--format", choices=("csv", "parquet", "json"), default="csv")
+    results.add_argument("--out", default=None, help="file to write (default: standard output)")
+    results.set_defaults(func=cmd_results)
+
+    try:
+        from sweep import report_cli
+    except ImportError:  # pragma: no cover - the report commands are optional while being built
+        report_cli = None
+    if report_cli is not None:
+        report_cli.add_commands(sub)
+    return parser
+
+
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a positive integer, got {text!r}") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a positive integer, got {text!r}")
+    return value
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from sweep.run import RunOptions, run_sweep
+
+    options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
+                         retry_failed=args.retry_failed, claim=args.claim,
+                         accept_changed_data=args.accept_changed_data, progress=args.progress)
+    summary = run_sweep(args.spec, options)
+    if args.json:
+        print(json.dumps(summary.__dict__))
+    else:
+        print(_describe_run(summary))
+    return EXIT_INTERRUPTED if summary.interrupted else 0
+
+
+def _describe_run(s: Any) -> str:
+    head = f"sweep {s.sweep!r}: {s.planned} jobs planned ({s.new} new), planning took {s.planning_seconds:.2f} s"
+    if s.ran == 0 and s.pending == 0 and not s.interrupted:
+        return f"{head}; nothing left to do: {s.done} done, {s.failed} failed"
+    state = "interrupted" if s.interrupted else "finished"
+    return (f"{head}; {state} after {s.seconds:.1f} s: ran {s.ran} jobs; now {s.done} done, {s.failed} failed, "
+            f"{s.pending} pending" + (f"; {s.requeued} re-queued from an earlier run" if s.requeued else ""))
+
+
+def cmd_status(args: argparse.Namespace) -> int:
+    from sweep.run import load_inputs, open_store
+
+    inputs = load_inputs(args.spec)
+    counts = {"total": len(inputs.plan.jobs), "done": 0, "failed": 0, "pending": 0, "running": 0}
+    failures: dict[str, int] = {}
+    try:
+        store = open_store(inputs.spec, create=False)
+    except FoldsweepError:
+        store = None  # not run yet: everything is pending
+    if store is not None:
+        try:
+            states = {r.key: (r.state, r.error, r.timed_out) for r in store.job_rows(inputs.spec.name)}
+        finally:
+            store.close()
+        for job in inputs.plan.jobs:
+            state, error, timed_out = states.get(job.key, ("pending", None, False))
+            counts[state] += 1
+            if state == "failed":
+                message = "timed out" if timed_out else _last_line(error)
+                failures[message] = failures.get(message, 0) + 1
+    else:
+        counts["pending"] = counts["total"]
+    if args.json:
+        print(json.dumps({**counts, "failures": failures}))
+        return 0
+    print(f"sweep {inputs.spec.name!r}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
+          f"{counts['running']} running, {counts['pending']} pending")
+    for message, n in sorted(failures.items(), key=lambda kv: -kv[1]):
+        print(f"  {n} failed: {message}")
+    return 0
+
+
+def _last_line(error: str | None) -> str:
+    lines = [line.strip() for line in (error or "").strip().splitlines() if line.strip()]
+    return lines[-1] if lines else "unknown error"
+
+
+def cmd_results(args: argparse.Namespace) -> int:
+    from sweep.results import results_frame
+    from sweep.run import load_inputs, open_store
+    from sweep.writing import write_frame
+
+    inputs = load_inputs(args.spec)
+    store = open_store(inputs.spec, create=False)
+    try:
+        frame, _ = results_frame(inputs, store)
+    finally:
+        store.close()
+    write_frame(frame, args.format, args.out)
+    return 0
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except FoldsweepError as exc:
+        print(f"foldsweep: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("foldsweep: interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

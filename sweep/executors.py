@@ -1,0 +1,111 @@
+"""Executors: where fold jobs run. Each registers by name; a run names one.
+
+An executor ships each dataset once (:meth:`Executor.share`), submits
+``workers.job.run_job`` calls and hands back futures with the
+``concurrent.futures`` interface. A future whose worker process died raises
+an exception that :meth:`Executor.is_worker_death` recognises; the run loop
+then re-queues the job rather than recording it as the job's own failure.
+
+Adding an executor: subclass :class:`Executor`, then add one line to
+``EXECUTORS``.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import os
+import pickle
+import shutil
+import tempfile
+from typing import Any, Callable, Iterable
+
+from workers.job import DataRef, Job, run_job
+
+
+class Executor:
+    """Base class; ``workers`` is the number of jobs run at once."""
+
+    workers: int = 1
+
+    def share(self, data: Any) -> Any:
+        """A handle for ``data`` that can be passed with every job cheaply."""
+        return data
+
+    def submit(self, job: Job, handle: Any) -> Any:
+        raise NotImplementedError
+
+    def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
+        """The futures among ``futures`` that are finished, waiting at most ``timeout`` s for one."""
+        done, _ = cf.wait(list(futures), timeout=timeout, return_when=cf.FIRST_COMPLETED)
+        return set(done)
+
+    def is_worker_death(self, exc: BaseException) -> bool:
+        return False
+
+    def close(self, *, kill: bool = False) -> None:
+        pass
+
+
+class InProcessExecutor(Executor):
+    """One job at a time in this process: the same code path, debuggable with pdb."""
+
+    def submit(self, job: Job, handle: Any) -> cf.Future[Any]:
+        future: cf.Future[Any] = cf.Future()
+        future.set_result(run_job(job, handle))
+        return future
+
+
+class JoblibExecutor(Executor):
+    """Worker processes from joblib's loky backend (the embedded default)."""
+
+    def __init__(self, workers: int) -> None:
+        from joblib.externals.loky import get_reusable_executor
+
+        self.workers = workers
+        self._get = lambda: get_reusable_executor(max_workers=workers, timeout=60)
+        self._pool = self._get()
+        self._dir = tempfile.mkdtemp(prefix="foldsweep-data-")
+
+    def share(self, data: Any) -> DataRef:
+        path = os.path.join(self._dir, f"{data.fingerprint}.pickle")
+        with open(path, "wb") as handle:
+            pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
+        return DataRef(path, data.fingerprint)
+
+    def submit(self, job: Job, handle: Any) -> cf.Future[Any]:
+        try:
+            return self._pool.submit(run_job, job, handle)
+        except RuntimeError:  # a broken pool after a worker died: start a fresh one
+            self._pool = self._get()
+            return self._pool.submit(run_job, job, handle)
+
+    def is_worker_death(self, exc: BaseException) -> bool:
+        from joblib.externals.loky.process_executor import BrokenProcessPool
+
+        return isinstance(exc, BrokenProcessPool)
+
+    def close(self, *, kill: bool = False) -> None:
+        if kill:
+            self._pool.shutdown(wait=True, kill_workers=True)
+        shutil.rmtree(self._dir, ignore_errors=True)
+
+
+def _joblib(workers: int, **options: Any) -> Executor:
+    return InProcessExecutor() if workers == 1 else JoblibExecutor(workers)
+
+
+def _dask(workers: int, **options: Any) -> Executor:
+    from sweep.dask_executor import DaskExecutor
+
+    return DaskExecutor(workers, **options)
+
+
+EXECUTORS: dict[str, Callable[..., Executor]] = {
+    "joblib": _joblib,
+    "dask": _dask,
+}
+
+
+def make_executor(backend: str, workers: int, **options: Any) -> Executor:
+    """The executor called ``backend`` with ``workers`` workers."""
+    return EXECUTORS[backend](workers, **options)

@@ -1,0 +1,129 @@
+"""The plan: grid × datasets × repeats × folds expanded into jobs with stable keys.
+
+Pure: a spec and the datasets' fingerprints in, configurations and jobs out;
+no I/O. A configuration's identity is its worker and its *complete*
+parameters (declared defaults filled in, keys sorted), so the same
+parameters written in another order, or a default written out, give the
+same configuration id. A job key hashes the dataset fingerprint, the fold
+scheme, the repeat and fold, the configuration id and the worker's version:
+growing a grid adds keys and never changes the existing ones.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import itertools
+import json
+from dataclasses import dataclass
+from typing import Any, Iterable, Mapping
+
+from sweep.errors import SpecError
+from sweep.spec import ModelBlock, Spec
+
+
+@dataclass(frozen=True)
+class Configuration:
+    """One point of a model block's grid."""
+
+    #: short stable id: a hash of the worker name and the complete parameters
+    config_id: str
+    worker: str
+    worker_version: str
+    #: the model block's name
+    label: str
+    #: complete canonical parameters, sorted by name
+    params: Mapping[str, Any]
+
+
+@dataclass(frozen=True)
+class PlannedJob:
+    """One (dataset, configuration, repeat, fold) and its key."""
+
+    key: str
+    dataset: str
+    fingerprint: str
+    config_id: str
+    repeat: int
+    fold: int
+
+
+@dataclass(frozen=True)
+class Plan:
+    configurations: tuple[Configuration, ...]
+    jobs: tuple[PlannedJob, ...]
+    scheme: str
+
+    @property
+    def by_config(self) -> dict[str, Configuration]:
+        return {c.config_id: c for c in self.configurations}
+
+
+def canonical_json(params: Mapping[str, Any]) -> str:
+    """The canonical text of a parameter set (sorted keys, no spaces)."""
+    return json.dumps(dict(params), sort_keys=True, separators=(",", ":"))
+
+
+def config_id(worker: str, params: Mapping[str, Any]) -> str:
+    """Short stable id of a configuration: worker name + complete parameters."""
+    text = worker + "|" + canonical_json(params)
+    return hashlib.sha256(text.encode()).hexdigest()[:10]
+
+
+def job_key(fingerprint: str, scheme: str, repeat: int, fold: int, config: str, version: str) -> str:
+    """Stable key of one fold job (see the module docstring for what it covers)."""
+    text = f"{fingerprint}|{scheme}|{repeat}|{fold}|{config}|{version}"
+    return hashlib.sha256(text.encode()).hexdigest()[:20]
+
+
+def expand_block(block: ModelBlock, declared: Mapping[str, Any], version: str) -> list[Configuration]:
+    """Every configuration of one model block, in grid order, without duplicates."""
+    names = list(block.grid)
+    seen: dict[str, Configuration] = {}
+    for values in itertools.product(*(block.grid[n] for n in names)):
+        point = {name: param.default for name, param in declared.items()}
+        point.update(block.fixed)
+        point.update(zip(names, values))
+        if any(_matches(rule, point) for rule in block.exclude):
+            continue
+        for target, condition in block.applies.items():
+            if not _matches(condition, point):
+                point[target] = block.fixed.get(target, declared[target].default)
+        params = dict(sorted(point.items()))
+        cid = config_id(block.worker, params)
+        seen.setdefault(cid, Configuration(cid, block.worker, version, block.label, params))
+    return list(seen.values())
+
+
+def _matches(rule: Mapping[str, tuple[Any, ...]], point: Mapping[str, Any]) -> bool:
+    return all(point.get(name) in values for name, values in rule.items())
+
+
+def make_plan(spec: Spec, fingerprints: Mapping[str, str], workers: Mapping[str, Any]) -> Plan:
+    """Expand ``spec`` into configurations and jobs.
+
+    ``fingerprints`` maps dataset name to content fingerprint, ``workers``
+    maps worker name to its :class:`workers.registry.Worker`.
+    """
+    configurations: dict[str, Configuration] = {}
+    for i, block in enumerate(spec.models):
+        worker = workers[block.worker]
+        expanded = expand_block(block, worker.params, worker.version)
+        if not expanded:
+            raise SpecError(f"{spec.path}: model[{i}] {block.label!r}: the grid is empty after its exclude rules")
+        for config in expanded:
+            configurations.setdefault(config.config_id, config)
+    scheme = spec.folds.key
+    jobs = tuple(_jobs(spec, fingerprints, configurations.values(), scheme))
+    return Plan(tuple(configurations.values()), jobs, scheme)
+
+
+def _jobs(spec: Spec, fingerprints: Mapping[str, str], configs: Iterable[Configuration],
+          scheme: str) -> Iterable[PlannedJob]:
+    folds = [(r, f) for r in range(spec.folds.repeats) for f in range(spec.folds.k)]
+    for entry in spec.datasets:
+        name = entry["name"]
+        fp = fingerprints[name]
+        for config in configs:
+            for repeat, fold in folds:
+                key = job_key(fp, scheme, repeat, fold, config.config_id, config.worker_version)
+                yield PlannedJob(key, name, fp, config.config_id, repeat, fold)

@@ -1,0 +1,291 @@
+"""The run loop: claim jobs from the tracker, dispatch them, collect, commit.
+
+::
+
+    load spec ─► load datasets ─► plan ─► sync tracker ─► requeue stale ─┐
+                                                                         ▼
+        ┌──── claim a window of pending jobs (lease) ◄──────────────────┐
+        ▼                                                               │
+    submit to executor ─► wait for any ─► batch results ─► commit ──────┘
+                                    (every second or 50 results, one transaction)
+
+Events and what they do: a job finished (its result joins the next commit),
+a job raised (recorded failed with its traceback), its worker process died
+(the job goes back to pending; after ``max_attempts`` deaths it is failed,
+and a job retried after a death runs alone so that the blame is exact), a
+lease is due (renewed for the jobs in hand), Ctrl-C (stop dispatching,
+commit what finished, give the rest back as pending).
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Mapping, TextIO
+
+from sweep.errors import DatasetError
+from sweep.plan import Plan, make_plan
+from sweep.spec import Spec, load_spec
+from sweep.store import Claimed, Store, owner_id
+
+#: seconds a claim is valid without renewal
+LEASE_SECONDS = 60.0
+COMMIT_EVERY_SECONDS = 1.0
+COMMIT_EVERY_RESULTS = 50
+
+
+@dataclass(frozen=True)
+class Inputs:
+    """A spec with its datasets loaded and its plan expanded: everything before the tracker."""
+
+    spec: Spec
+    datasets: Mapping[str, Any]
+    workers: Mapping[str, Any]
+    plan: Plan
+
+
+@dataclass
+class RunOptions:
+    workers: int | None = None
+    backend: str = "joblib"
+    scheduler: str | None = None
+    retry_failed: bool = False
+    #: jobs claimed per round trip to the tracker (None: a window sized to the workers)
+    claim: int | None = None
+    accept_changed_data: bool = False
+    progress: str = "auto"
+    lease_seconds: float = LEASE_SECONDS
+    executor_options: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class RunSummary:
+    sweep: str
+    planned: int
+    new: int
+    done: int = 0
+    failed: int = 0
+    pending: int = 0
+    ran: int = 0
+    requeued: int = 0
+    interrupted: bool = False
+    planning_seconds: float = 0.0
+    seconds: float = 0.0
+
+
+def load_inputs(spec_path: str | Path) -> Inputs:
+    """Parse the spec, load and check its datasets, expand the plan. No tracker I/O."""
+    from sweep._datacache import cached_load
+    from sweep.folds import check_feasible
+    from workers.registry import get_worker
+
+    spec = load_spec(spec_path)
+    datasets = {}
+    for i, entry in enumerate(spec.datasets):
+        where = f"{spec.path}: dataset[{i}] {entry['name']!r}"
+        data = cached_load(entry, spec.path.resolve().parent, where)
+        check_feasible(data.y, data.classes, spec.folds, where)
+        datasets[entry["name"]] = data
+    workers = {m.worker: get_worker(m.worker) for m in spec.models}
+    plan = make_plan(spec, {n: d.fingerprint for n, d in datasets.items()}, workers)
+    return Inputs(spec, datasets, workers, plan)
+
+
+def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = False,
+               out: TextIO | None = None) -> int:
+    """Record the sweep, datasets, configurations, folds and new jobs. Returns the new job count."""
+    import json
+
+    from sweep.folds import compute_folds
+
+    spec, plan = inputs.spec, inputs.plan
+    _refuse_changed_data(store, inputs, accept_changed_data)
+    store.record_sweep(spec.name, str(spec.path), spec.digest)
+    store.record_datasets([dict(fingerprint=d.fingerprint, name=d.name, source=d.source, n_samples=d.n_samples,
+                                n_features=d.n_features, class_counts=json.dumps(d.class_counts.tolist()))
+                           for d in inputs.datasets.values()])
+    store.record_configurations([dict(config_id=c.config_id, worker=c.worker, label=c.label,
+                                      params=json.dumps(dict(c.params), sort_keys=True))
+                                 for c in plan.configurations])
+    for data in inputs.datasets.values():
+        if not store.has_folds(plan.scheme, data.fingerprint):
+            store.record_folds(plan.scheme, data.fingerprint, compute_folds(data.y, spec.folds))
+        for repeat, fold, missing in store.fold_warnings(plan.scheme, data.fingerprint):
+            names = ", ".join(repr(data.classes[c]) for c in missing)
+            print(f"warning: dataset {data.name!r} repeat {repeat} fold {fold}: the training part lacks "
+                  f"class {names}", file=out or sys.stderr)
+    return store.sync_jobs(spec.name, plan.scheme, plan.jobs)
+
+
+def _refuse_changed_data(store: Store, inputs: Inputs, accept: bool) -> None:
+    seen = store.sweep_fingerprints(inputs.spec.name)
+    for name, data in inputs.datasets.items():
+        earlier = seen.get(name)
+        if earlier and data.fingerprint not in earlier and not accept:
+            raise DatasetError(
+                f"{inputs.spec.path}: dataset {name!r} changed since this sweep's earlier jobs "
+                f"(fingerprint {', '.join(sorted(earlier))} -> {data.fingerprint}); restore it, or run with "
+                "--accept-changed-data to plan new jobs for the new content (earlier results are kept apart)")
+
+
+def open_store(spec: Spec, *, create: bool = True) -> Store:
+    from sweep.cluster import refuse_network_sqlite
+
+    refuse_network_sqlite(spec.store_url)
+    return Store.open(spec.store_url, create=create)
+
+
+def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
+              out: TextIO | None = None) -> RunSummary:
+    """Plan, sync and run every pending job of the sweep at ``spec_path``."""
+    options = options or RunOptions()
+    out = out or sys.stderr
+    started = time.monotonic()
+    inputs = load_inputs(spec_path)
+    store = open_store(inputs.spec)
+    try:
+        new = sync_store(store, inputs, accept_changed_data=options.accept_changed_data, out=out)
+        summary = RunSummary(inputs.spec.name, len(inputs.plan.jobs), new)
+        summary.requeued = store.requeue_stale(inputs.spec.name)
+        if options.retry_failed:
+            summary.requeued += store.retry_failed(inputs.spec.name)
+        summary.planning_seconds = time.monotonic() - started
+        counts = store.counts(inputs.spec.name)
+        if counts["pending"] == 0:
+            _finish(summary, counts, started)
+            return summary
+        loop = _Loop(store, inputs, options, out)
+        try:
+            loop.run(counts)
+        finally:
+            summary.ran, summary.interrupted = loop.ran, loop.interrupted
+        _finish(summary, store.counts(inputs.spec.name), started)
+        return summary
+    finally:
+        store.close()
+
+
+def _finish(summary: RunSummary, counts: Mapping[str, int], started: float) -> None:
+    summary.done, summary.failed = counts["done"], counts["failed"]
+    summary.pending = counts["pending"] + counts["running"]
+    summary.seconds = time.monotonic() - started
+
+
+class _Loop:
+    """One driver's dispatch loop over the tracker (see the module docstring)."""
+
+    def __init__(self, store: Store, inputs: Inputs, options: RunOptions, out: TextIO) -> None:
+        from sweep.executors import make_executor
+
+        self.store, self.inputs, self.options, self.out = store, inputs, options, out
+        self.spec = inputs.spec
+        self.owner = owner_id()
+        workers = options.workers or os.cpu_count() or 1
+        self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
+                                      **options.executor_options)
+        self.window = options.claim or 4 * self.executor.workers
+        self.configs = inputs.plan.by_config
+        self.folds: dict[str, dict[tuple[int, int], Any]] = {}
+        self.handles: dict[str, Any] = {}
+        self.inflight: dict[Any, Claimed] = {}
+        self.isolated: list[Claimed] = []
+        self.finished: list[Any] = []
+        self.give_up: dict[str, str] = {}
+        self.ran = 0
+        self.interrupted = False
+        self.exhausted = False
+
+    def run(self, counts: Mapping[str, int]) -> None:
+        from sweep.progress import Progress
+
+        self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
+                                 mode=self.options.progress, stream=self.out)
+        last_commit = last_renew = time.monotonic()
+        try:
+            while True:
+                self._dispatch()
+                if not self.inflight:
+                    break
+                for future in self.executor.wait(self.inflight, timeout=0.5):
+                    self._collect(future)
+                now = time.monotonic()
+                if len(self.finished) >= COMMIT_EVERY_RESULTS or now - last_commit >= COMMIT_EVERY_SECONDS:
+                    self._commit()
+                    last_commit = now
+                if now - last_renew >= self.options.lease_seconds / 3:
+                    self.store.renew(self.owner, [c.key for c in self.inflight.values()], self.options.lease_seconds)
+                    last_renew = now
+            self._commit()
+            self.executor.close()
+        except KeyboardInterrupt:
+            self.interrupted = True
+            self._stop()
+        finally:
+            self.progress.close()
+
+    def _stop(self) -> None:
+        print("interrupted: committing finished jobs, giving the rest back as pending", file=self.out, flush=True)
+        for future in [f for f in self.inflight if f.done()]:
+            self._collect(future)
+        self._commit()
+        held = [c.key for c in self.inflight.values()] + [c.key for c in self.isolated]
+        self.store.release(self.owner, held)
+        self.executor.close(kill=True)
+
+    def _dispatch(self) -> None:
+        if any(c.attempts > 1 for c in self.inflight.values()):
+            return  # a job retried after a worker death runs alone
+        if not self.isolated and not self.exhausted and len(self.inflight) <= self.window // 2:
+            claimed = self.store.claim(self.spec.name, self.owner, self.window - len(self.inflight),
+                                       self.options.lease_seconds, self.spec.max_attempts)
+            self.exhausted = not claimed
+            self.isolated.extend(c for c in claimed if c.attempts > 1)
+            for c in claimed:
+                if c.attempts == 1:
+                    self._submit(c)
+        if self.isolated and not self.inflight:
+            self._submit(self.isolated.pop(0))
+
+    def _submit(self, claimed: Claimed) -> None:
+        from workers.job import Job
+
+        config = self.configs[claimed.config_id]
+        fp = claimed.fingerprint
+        if fp not in self.folds:
+            self.folds[fp] = self.store.load_folds(self.inputs.plan.scheme, fp)
+            self.handles[fp] = self.executor.share(self.inputs.datasets[claimed.dataset])
+        job = Job(key=claimed.key, worker=config.worker, params=dict(config.params), dataset=claimed.dataset,
+                  fingerprint=fp, repeat=claimed.repeat, fold=claimed.fold,
+                  test_index=self.folds[fp][(claimed.repeat, claimed.fold)], time_limit=self.spec.time_limit)
+        self.inflight[self.executor.submit(job, self.handles[fp])] = claimed
+
+    def _collect(self, future: Any) -> None:
+        claimed = self.inflight.pop(future)
+        try:
+            result = future.result()
+        except BaseException as exc:  # noqa: BLE001 - the worker died or the engine lost the task
+            if not self.executor.is_worker_death(exc) and not isinstance(exc, Exception):
+                raise
+            self._worker_died(claimed, exc)
+            return
+        self.finished.append(result)
+        self.ran += 1
+
+    def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
+        reason = f"worker process died ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})"
+        if claimed.attempts >= self.spec.max_attempts:
+            self.give_up[claimed.key] = f"{reason}; gave up after {claimed.attempts} attempts"
+        else:
+            self.store.release(self.owner, [claimed.key], count_attempt=True)
+            self.exhausted = False
+
+    def _commit(self) -> None:
+        if not self.finished and not self.give_up:
+            return
+        self.store.commit_results(self.owner, self.finished, self.give_up)
+        ok = sum(r.ok for r in self.finished)
+        self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up))
+        self.finished, self.give_up = [], {}

@@ -1,0 +1,279 @@
+"""The sweep spec: one TOML file that says what to run.
+
+::
+
+    name = "glasshouse-demo"          # the sweep's name (default: the file's stem)
+    store = "demo.sqlite"             # optional: a path beside the spec, or any SQLAlchemy URL
+    time_limit = 600                  # optional: seconds per fold job
+    max_attempts = 3                  # optional: tries for a job whose worker process died
+
+    [folds]                           # stratified k-fold, repeated, seeded
+    k = 5
+    repeats = 1
+    seed = 0
+
+    [[dataset]]                       # see sweep.datasets for the dataset keys
+    name = "iris"
+    builtin = "iris"
+
+    [[model]]                         # one or more model blocks
+    name = "fuzzy"                    # optional label
+    worker = "fuzzy_rules"            # a registered worker, or "package.module:attribute"
+    fixed = { evaluations = 2000 }    # parameters held fixed
+    grid = { reasoning = ["additive", "choquet"], measure = ["power", "sugeno_lambda"] }
+    exclude = [ { reasoning = "additive", measure = "sugeno_lambda" } ]  # combinations to skip
+    applies = { measure = { reasoning = ["choquet"] } }  # measure varies only where reasoning is choquet
+
+Everything is checked against the workers' parameter declarations before
+anything runs; nothing else in foldsweep parses a spec.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Mapping
+
+from sweep.errors import SpecError
+
+TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "folds", "dataset", "model")
+FOLD_KEYS = ("k", "repeats", "seed")
+MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies")
+
+
+@dataclass(frozen=True)
+class FoldScheme:
+    """Stratified k-fold, repeated ``repeats`` times, shuffled with ``seed``."""
+
+    k: int = 5
+    repeats: int = 1
+    seed: int = 0
+
+    @property
+    def key(self) -> str:
+        """The scheme's identity, part of every job key."""
+        return f"stratified-k{self.k}-r{self.repeats}-s{self.seed}"
+
+
+@dataclass(frozen=True)
+class ModelBlock:
+    """One model block: a worker, fixed parameters, a grid, and its rules."""
+
+    label: str
+    worker: str
+    fixed: Mapping[str, Any]
+    grid: Mapping[str, tuple[Any, ...]]
+    exclude: tuple[Mapping[str, tuple[Any, ...]], ...]
+    applies: Mapping[str, Mapping[str, tuple[Any, ...]]]
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A parsed and validated sweep spec."""
+
+    path: Path
+    name: str
+    store_url: str
+    folds: FoldScheme
+    datasets: tuple[Mapping[str, Any], ...]
+    models: tuple[ModelBlock, ...]
+    time_limit: float | None
+    max_attempts: int
+    #: sha256 of the file's bytes (recorded with the sweep)
+    digest: str
+
+
+def load_spec(path: str | Path) -> Spec:
+    """Read and validate a spec file, or raise :class:`SpecError` naming the file and key."""
+    path = Path(path)
+    try:
+        raw_bytes = path.read_bytes()
+    except OSError as exc:
+        raise SpecError(f"{path}: cannot read the spec: {exc.strerror or exc}") from None
+    try:
+        doc = tomllib.loads(raw_bytes.decode("utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise SpecError(f"{path}: not valid TOML: {exc}") from None
+    return parse_spec(doc, path, hashlib.sha256(raw_bytes).hexdigest())
+
+
+def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:
+    """Validate an already-parsed TOML document as a spec."""
+    where = str(path)
+    _check_keys(doc, TOP_KEYS, where, "")
+    name = _typed(doc.get("name", path.stem), str, where, "name", "a string")
+    return Spec(
+        path=path,
+        name=name,
+        store_url=_store_url(doc.get("store"), path),
+        folds=_folds(doc.get("folds", {}), where),
+        datasets=_datasets(doc.get("dataset"), where),
+        models=_models(doc.get("model"), where),
+        time_limit=_time_limit(doc.get("time_limit"), where),
+        max_attempts=_int_at_least(doc.get("max_attempts", 3), 1, where, "max_attempts"),
+        digest=digest,
+    )
+
+
+def nearest(name: str, valid: Any) -> str:
+    """' (did you mean 'x'?)' for the closest valid name, or ''."""
+    near = difflib.get_close_matches(name, list(valid), n=1, cutoff=0.6)
+    return f" (did you mean {near[0]!r}?)" if near else ""
+
+
+def _check_keys(table: Any, allowed: tuple[str, ...], where: str, prefix: str) -> None:
+    if not isinstance(table, Mapping):
+        raise SpecError(f"{where}: {prefix.rstrip('.') or 'the spec'} must be a table")
+    for key in table:
+        if key not in allowed:
+            raise SpecError(f"{where}: unknown key {prefix}{key!r}{nearest(key, allowed)}; "
+                            f"allowed: {', '.join(allowed)}")
+
+
+def _typed(value: Any, kind: type, where: str, key: str, words: str) -> Any:
+    if not isinstance(value, kind) or isinstance(value, bool) and kind is not bool:
+        raise SpecError(f"{where}: {key} must be {words}, got {value!r}")
+    return value
+
+
+def _int_at_least(value: Any, low: int, where: str, key: str) -> int:
+    _typed(value, int, where, key, f"an integer >= {low}")
+    if value < low:
+        raise SpecError(f"{where}: {key} must be an integer >= {low}, got {value!r}")
+    return int(value)
+
+
+def _store_url(value: Any, path: Path) -> str:
+    if value is None:
+        return f"sqlite:///{path.resolve().with_suffix('.sqlite')}"
+    _typed(value, str, str(path), "store", "a path or an SQLAlchemy URL")
+    if "://" in value:
+        return value
+    return f"sqlite:///{(path.resolve().parent / value).resolve()}"
+
+
+def _time_limit(value: Any, where: str) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or value <= 0:
+        raise SpecError(f"{where}: time_limit must be a number of seconds > 0, got {value!r}")
+    return float(value)
+
+
+def _folds(table: Any, where: str) -> FoldScheme:
+    _check_keys(table, FOLD_KEYS, where, "folds.")
+    return FoldScheme(
+        k=_int_at_least(table.get("k", 5), 2, where, "folds.k"),
+        repeats=_int_at_least(table.get("repeats", 1), 1, where, "folds.repeats"),
+        seed=_int_at_least(table.get("seed", 0), 0, where, "folds.seed"),
+    )
+
+
+def _datasets(entries: Any, where: str) -> tuple[Mapping[str, Any], ...]:
+    from sweep.datasets import validate_entry
+
+    if not entries:
+        raise SpecError(f"{where}: no [[dataset]] given; a sweep needs at least one dataset")
+    if not isinstance(entries, list):
+        raise SpecError(f"{where}: dataset must be an array of tables ([[dataset]])")
+    seen: set[str] = set()
+    for i, entry in enumerate(entries):
+        label = f"{where}: dataset[{i}]"
+        if not isinstance(entry, Mapping) or not isinstance(entry.get("name"), str) or not entry["name"]:
+            raise SpecError(f"{label}: every dataset needs a name (a non-empty string)")
+        if entry["name"] in seen:
+            raise SpecError(f"{label}: dataset name {entry['name']!r} is used twice")
+        seen.add(entry["name"])
+        validate_entry(entry, f"{label} {entry['name']!r}")
+    return tuple(entries)
+
+
+def _models(blocks: Any, where: str) -> tuple[ModelBlock, ...]:
+    if not blocks:
+        raise SpecError(f"{where}: no [[model]] given; a sweep needs at least one model block")
+    if not isinstance(blocks, list):
+        raise SpecError(f"{where}: model must be an array of tables ([[model]])")
+    models = tuple(_model(block, f"{where}: model[{i}]") for i, block in enumerate(blocks))
+    labels = [m.label for m in models]
+    for label in labels:
+        if labels.count(label) > 1:
+            raise SpecError(f"{where}: model name {label!r} is used twice; give each block its own name")
+    return models
+
+
+def _model(block: Any, where: str) -> ModelBlock:
+    from workers.registry import get_worker
+
+    _check_keys(block, MODEL_KEYS, where, "")
+    if "worker" not in block:
+        raise SpecError(f"{where}: missing key 'worker' (the kind of fold job, e.g. 'fuzzy_rules')")
+    name = _typed(block["worker"], str, where, "worker", "a worker name")
+    try:
+        declared = get_worker(name).params
+    except KeyError as exc:
+        raise SpecError(f"{where}: worker: {exc.args[0]}") from None
+    where = f"{where} {block.get('name', name)!r}"
+    fixed = _table(block.get("fixed", {}), where, "fixed")
+    grid = _table(block.get("grid", {}), where, "grid")
+    fixed_checked = {k: _param(declared, name, k, v, where, f"fixed.{k}") for k, v in fixed.items()}
+    grid_checked = {k: _grid_values(declared, name, k, v, where) for k, v in grid.items()}
+    for key in fixed_checked.keys() & grid_checked.keys():
+        raise SpecError(f"{where}: {key!r} is both in fixed and in grid; keep it in one of them")
+    return ModelBlock(
+        label=_typed(block.get("name", name), str, where, "name", "a string"),
+        worker=name,
+        fixed=fixed_checked,
+        grid=grid_checked,
+        exclude=tuple(_rule(declared, name, r, where, f"exclude[{i}]")
+                      for i, r in enumerate(_list(block.get("exclude", []), where, "exclude"))),
+        applies={k: _rule(declared, name, cond, where, f"applies.{k}", target=k)
+                 for k, cond in _table(block.get("applies", {}), where, "applies").items()},
+    )
+
+
+def _table(value: Any, where: str, key: str) -> Mapping[str, Any]:
+    if not isinstance(value, Mapping):
+        raise SpecError(f"{where}: {key} must be a table of parameter = value")
+    return value
+
+
+def _list(value: Any, where: str, key: str) -> list[Any]:
+    if not isinstance(value, list):
+        raise SpecError(f"{where}: {key} must be an array of tables")
+    return value
+
+
+def _param(declared: Mapping[str, Any], worker: str, key: str, value: Any, where: str, at: str) -> Any:
+    if key not in declared:
+        raise SpecError(f"{where}: {at}: unknown parameter of worker {worker!r}{nearest(key, declared)}; "
+                        f"parameters: {', '.join(sorted(declared))}")
+    try:
+        return declared[key].check(value)
+    except ValueError as exc:
+        raise SpecError(f"{where}: {at} {exc}") from None
+
+
+def _grid_values(declared: Mapping[str, Any], worker: str, key: str, values: Any, where: str) -> tuple[Any, ...]:
+    if not isinstance(values, list):
+        values = [values]
+    if not values:
+        raise SpecError(f"{where}: grid.{key} is empty; give at least one value "
+                        f"({declared[key].allowed() if key in declared else 'a list'})")
+    checked = tuple(_param(declared, worker, key, v, where, f"grid.{key}") for v in values)
+    if len(set(map(repr, checked))) != len(checked):
+        raise SpecError(f"{where}: grid.{key} lists a value twice: {values!r}")
+    return checked
+
+
+def _rule(declared: Mapping[str, Any], worker: str, rule: Any, where: str, at: str,
+          target: str | None = None) -> Mapping[str, tuple[Any, ...]]:
+    if target is not None and target not in declared:
+        raise SpecError(f"{where}: {at}: unknown parameter of worker {worker!r}{nearest(target, declared)}; "
+                        f"parameters: {', '.join(sorted(declared))}")
+    if not isinstance(rule, Mapping) or not rule:
+        raise SpecError(f"{where}: {at} must be a non-empty table of parameter = value or [values]")
+    return {k: tuple(_param(declared, worker, k, v, where, f"{at}.{k}")
+                     for v in (vs if isinstance(vs, list) else [vs])) for k, vs in rule.items()}

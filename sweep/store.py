@@ -1,0 +1,495 @@
+"""The tracker: the only module that speaks SQL (SQLAlchemy Core).
+
+Tables (``results_schema/schema.sql`` is the same, written out)::
+
+    meta            name -> value; holds schema_version
+    sweeps          one row per spec name: path, digest, first and last run
+    datasets        fingerprint -> name, source, shape, class counts
+    configurations  config_id -> worker, block label, canonical parameters (JSON)
+    folds           (scheme, fingerprint, repeat, fold) -> test indices (int32 bytes)
+    jobs            key -> cell, repeat, fold, state, attempts, owner, lease, timings, error
+    results         key -> metrics, figures (JSON), model text, worker version, host
+
+Job states: ``pending`` → ``running`` (claimed by an owner with a lease) →
+``done`` | ``failed``. A running job whose lease expired, or whose owner
+process on this host is gone, goes back to ``pending``. Only the driver
+writes, in batched transactions; a result row and its job's ``done`` state
+are written in the same transaction, so a kill at any moment leaves either
+both or neither.
+
+SQLite (WAL mode, ``BEGIN IMMEDIATE`` for every transaction) is the embedded
+default; PostgreSQL claims with ``FOR UPDATE SKIP LOCKED``.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import socket
+import time
+import uuid
+from dataclasses import dataclass
+from typing import Any, Iterable, Literal, Mapping, Sequence
+
+import numpy as np
+import sqlalchemy as sa
+
+from results_schema import SCHEMA_VERSION
+from sweep.errors import SchemaVersionError, StoreError
+
+JobState = Literal["pending", "running", "done", "failed"]
+STATES: tuple[JobState, ...] = ("pending", "running", "done", "failed")
+
+metadata = sa.MetaData()
+
+meta_table = sa.Table(
+    "meta", metadata,
+    sa.Column("name", sa.String(64), primary_key=True),
+    sa.Column("value", sa.Text, nullable=False),
+)
+sweeps_table = sa.Table(
+    "sweeps", metadata,
+    sa.Column("name", sa.String(200), primary_key=True),
+    sa.Column("spec_path", sa.Text, nullable=False),
+    sa.Column("spec_digest", sa.String(64), nullable=False),
+    sa.Column("first_run", sa.Float, nullable=False),
+    sa.Column("last_run", sa.Float, nullable=False),
+)
+datasets_table = sa.Table(
+    "datasets", metadata,
+    sa.Column("fingerprint", sa.String(32), primary_key=True),
+    sa.Column("name", sa.String(200), nullable=False),
+    sa.Column("source", sa.Text, nullable=False),
+    sa.Column("n_samples", sa.Integer, nullable=False),
+    sa.Column("n_features", sa.Integer, nullable=False),
+    sa.Column("class_counts", sa.Text, nullable=False),
+)
+configurations_table = sa.Table(
+    "configurations", metadata,
+    sa.Column("config_id", sa.String(32), primary_key=True),
+    sa.Column("worker", sa.String(200), nullable=False),
+    sa.Column("label", sa.String(200), nullable=False),
+    sa.Column("params", sa.Text, nullable=False),
+)
+folds_table = sa.Table(
+    "folds", metadata,
+    sa.Column("scheme", sa.String(64), primary_key=True),
+    sa.Column("fingerprint", sa.String(32), primary_key=True),
+    sa.Column("repeat", sa.Integer, primary_key=True),
+    sa.Column("fold", sa.Integer, primary_key=True),
+    sa.Column("test_index", sa.LargeBinary, nullable=False),
+    sa.Column("n_test", sa.Integer, nullable=False),
+    sa.Column("missing_classes", sa.Text, nullable=False),
+)
+jobs_table = sa.Table(
+    "jobs", metadata,
+    sa.Column("key", sa.String(40), primary_key=True),
+    sa.Column("sweep", sa.String(200), nullable=False),
+    sa.Column("active", sa.Boolean, nullable=False),
+    sa.Column("dataset", sa.String(200), nullable=False),
+    sa.Column("fingerprint", sa.String(32), nullable=False),
+    sa.Column("config_id", sa.String(32), nullable=False),
+    sa.Column("scheme", sa.String(64), nullable=False),
+    sa.Column("repeat", sa.Integer, nullable=False),
+    sa.Column("fold", sa.Integer, nullable=False),
+    sa.Column("state", sa.String(10), nullable=False),
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("owner", sa.String(200)),
+    sa.Column("lease_expires", sa.Float),
+    sa.Column("queued_at", sa.Float, nullable=False),
+    sa.Column("started_at", sa.Float),
+    sa.Column("finished_at", sa.Float),
+    sa.Column("timed_out", sa.Boolean, nullable=False),
+    sa.Column("error", sa.Text),
+    sa.Index("jobs_by_sweep_state", "sweep", "state"),
+)
+results_table = sa.Table(
+    "results", metadata,
+    sa.Column("key", sa.String(40), sa.ForeignKey("jobs.key"), primary_key=True),
+    sa.Column("accuracy", sa.Float, nullable=False),
+    sa.Column("balanced_accuracy", sa.Float, nullable=False),
+    sa.Column("kappa", sa.Float, nullable=False),
+    sa.Column("train_accuracy", sa.Float, nullable=False),
+    sa.Column("fit_seconds", sa.Float, nullable=False),
+    sa.Column("predict_seconds", sa.Float, nullable=False),
+    sa.Column("figures", sa.Text, nullable=False),
+    sa.Column("model_text", sa.Text),
+    sa.Column("worker_version", sa.String(64), nullable=False),
+    sa.Column("host", sa.String(200), nullable=False),
+    sa.Column("finished_at", sa.Float, nullable=False),
+)
+
+
+@dataclass(frozen=True)
+class Claimed:
+    """A job claimed for running: what the run loop needs to build a workers.Job."""
+
+    key: str
+    dataset: str
+    fingerprint: str
+    config_id: str
+    repeat: int
+    fold: int
+    attempts: int
+
+
+def owner_id() -> str:
+    """Identity of this driver process: host, pid and a random token."""
+    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+
+
+class Store:
+    """An open tracker. Create with :meth:`open`."""
+
+    def __init__(self, engine: sa.Engine, url: str) -> None:
+        self.engine = engine
+        self.url = url
+        self.is_sqlite = engine.dialect.name == "sqlite"
+
+    # ---- opening ---------------------------------------------------------------------------
+
+    @classmethod
+    def open(cls, url: str, *, create: bool = True) -> "Store":
+        """Open (and, if empty and ``create``, initialise) the store at ``url``.
+
+        A store of another schema version, or a database that is not a
+        foldsweep store, is refused before anything is written.
+        """
+        engine = _engine(url)
+        store = cls(engine, url)
+        try:
+            version = store._schema_version()
+            if version is None:
+                if not create:
+                    raise StoreError(f"{_where(url)}: no foldsweep store here (run the sweep first)")
+                store._create()
+            elif version != SCHEMA_VERSION:
+                raise SchemaVersionError(
+                    f"{_where(url)}: store has schema version {version}, this foldsweep reads version "
+                    f"{SCHEMA_VERSION}; use the foldsweep release that wrote it, or point 'store' elsewhere")
+            if store.is_sqlite:
+                raw = engine.raw_connection()
+                try:
+                    raw.cursor().execute("PRAGMA journal_mode=WAL")
+                finally:
+                    raw.close()
+        except sa.exc.SQLAlchemyError as exc:
+            engine.dispose()
+            raise StoreError(f"{_where(url)}: cannot open the store: {_one_line(exc)}") from None
+        except StoreError:
+            engine.dispose()
+            raise
+        return store
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def _schema_version(self) -> int | None:
+        names = set(sa.inspect(self.engine).get_table_names())
+        if not names:
+            return None
+        if "meta" not in names:
+            raise StoreError(f"{_where(self.url)}: this database holds other tables and is not a "
+                             "foldsweep store; point 'store' at a new file or database")
+        with self.engine.connect() as conn:
+            value = conn.execute(sa.select(meta_table.c.value)
+                                 .where(meta_table.c.name == "schema_version")).scalar()
+        try:
+            return int(value)
+        except (TypeError, ValueError):
+            raise StoreError(f"{_where(self.url)}: the store's schema_version is unreadable ({value!r})") from None
+
+    def _create(self) -> None:
+        with self.engine.begin() as conn:
+            metadata.create_all(conn)
+            conn.execute(sa.insert(meta_table), [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+
+    # ---- registering what a plan needs ----------------------------------------------------
+
+    def record_sweep(self, name: str, spec_path: str, digest: str) -> None:
+        now = time.time()
+        with self.engine.begin() as conn:
+            row = conn.execute(sa.select(sweeps_table.c.name).where(sweeps_table.c.name == name)).first()
+            if row is None:
+                conn.execute(sa.insert(sweeps_table).values(name=name, spec_path=spec_path, spec_digest=digest,
+                                                            first_run=now, last_run=now))
+            else:
+                conn.execute(sa.update(sweeps_table).where(sweeps_table.c.name == name)
+                             .values(spec_path=spec_path, spec_digest=digest, last_run=now))
+
+    def sweep_fingerprints(self, sweep: str) -> dict[str, set[str]]:
+        """Dataset name -> fingerprints this sweep has jobs for (to detect a changed dataset)."""
+        query = (sa.select(jobs_table.c.dataset, jobs_table.c.fingerprint).distinct()
+                 .where(jobs_table.c.sweep == sweep))
+        found: dict[str, set[str]] = {}
+        with self.engine.connect() as conn:
+            for name, fp in conn.execute(query):
+                found.setdefault(name, set()).add(fp)
+        return found
+
+    def record_datasets(self, rows: Sequence[Mapping[str, Any]]) -> None:
+        self._insert_missing(datasets_table, "fingerprint", rows)
+
+    def record_configurations(self, rows: Sequence[Mapping[str, Any]]) -> None:
+        self._insert_missing(configurations_table, "config_id", rows)
+
+    def _insert_missing(self, table: sa.Table, key: str, rows: Sequence[Mapping[str, Any]]) -> None:
+        with self.engine.begin() as conn:
+            have = {r[0] for r in conn.execute(sa.select(table.c[key]))}
+            new = [dict(r) for r in rows if r[key] not in have]
+            if new:
+                conn.execute(sa.insert(table), new)
+
+    def has_folds(self, scheme: str, fingerprint: str) -> bool:
+        query = sa.select(sa.func.count()).select_from(folds_table).where(
+            folds_table.c.scheme == scheme, folds_table.c.fingerprint == fingerprint)
+        with self.engine.connect() as conn:
+            return bool(conn.execute(query).scalar())
+
+    def record_folds(self, scheme: str, fingerprint: str, folds: Iterable[Any]) -> None:
+        rows = [dict(scheme=scheme, fingerprint=fingerprint, repeat=f.repeat, fold=f.fold,
+                     test_index=np.asarray(f.test_index, dtype="<i4").tobytes(), n_test=len(f.test_index),
+                     missing_classes=json.dumps(list(f.missing_classes))) for f in folds]
+        with self.engine.begin() as conn:
+            conn.execute(sa.insert(folds_table), rows)
+
+    def load_folds(self, scheme: str, fingerprint: str) -> dict[tuple[int, int], np.ndarray]:
+        """(repeat, fold) -> test indices, as stored."""
+        query = sa.select(folds_table.c.repeat, folds_table.c.fold, folds_table.c.test_index).where(
+            folds_table.c.scheme == scheme, folds_table.c.fingerprint == fingerprint)
+        with self.engine.connect() as conn:
+            return {(r, f): np.frombuffer(b, dtype="<i4").astype(np.int64) for r, f, b in conn.execute(query)}
+
+    def fold_warnings(self, scheme: str, fingerprint: str) -> list[tuple[int, int, list[int]]]:
+        query = sa.select(folds_table.c.repeat, folds_table.c.fold, folds_table.c.missing_classes).where(
+            folds_table.c.scheme == scheme, folds_table.c.fingerprint == fingerprint,
+            folds_table.c.missing_classes != "[]")
+        with self.engine.connect() as conn:
+            return [(r, f, json.loads(m)) for r, f, m in conn.execute(query)]
+
+    # ---- jobs ------------------------------------------------------------------------------
+
+    def sync_jobs(self, sweep: str, scheme: str, planned: Sequence[Any]) -> int:
+        """Insert the plan's new jobs and mark which of the sweep's jobs the plan holds.
+
+        Returns how many jobs were new. Existing jobs keep their state.
+        """
+        now = time.time()
+        wanted = {j.key: j for j in planned}
+        with self.engine.begin() as conn:
+            have = dict(conn.execute(sa.select(jobs_table.c.key, jobs_table.c.active)
+                                     .where(jobs_table.c.sweep == sweep)).all())
+            new = [j for k, j in wanted.items() if k not in have]
+            if new:
+                others = self._keys_elsewhere(conn, [j.key for j in new])
+                new = [j for j in new if j.key not in others]
+            for chunk in _chunks(new, 5000):
+                conn.execute(sa.insert(jobs_table), [
+                    dict(key=j.key, sweep=sweep, active=True, dataset=j.dataset, fingerprint=j.fingerprint,
+                         config_id=j.config_id, scheme=scheme, repeat=j.repeat, fold=j.fold, state="pending",
+                         attempts=0, queued_at=now, timed_out=False) for j in chunk])
+            activate = [k for k, active in have.items() if not active and k in wanted]
+            retire = [k for k, active in have.items() if active and k not in wanted]
+            for keys, flag in ((activate, True), (retire, False)):
+                for chunk in _chunks(keys, 900):
+                    conn.execute(sa.update(jobs_table).where(jobs_table.c.key.in_(chunk)).values(active=flag))
+        return len(new)
+
+    def _keys_elsewhere(self, conn: sa.Connection, keys: list[str]) -> set[str]:
+        found: set[str] = set()
+        for chunk in _chunks(keys, 900):
+            found.update(conn.execute(sa.select(jobs_table.c.key).where(jobs_table.c.key.in_(chunk))).scalars())
+        return found
+
+    def counts(self, sweep: str) -> dict[str, int]:
+        """Jobs per state, for the active jobs of ``sweep``."""
+        query = (sa.select(jobs_table.c.state, sa.func.count()).where(jobs_table.c.sweep == sweep,
+                 jobs_table.c.active).group_by(jobs_table.c.state))
+        with self.engine.connect() as conn:
+            found = dict(conn.execute(query).all())
+        return {state: int(found.get(state, 0)) for state in STATES}
+
+    def requeue_stale(self, sweep: str, now: float | None = None) -> int:
+        """Put back to pending the running jobs whose lease expired or whose owner here is dead."""
+        now = time.time() if now is None else now
+        host = socket.gethostname()
+        with self.engine.begin() as conn:
+            rows = conn.execute(sa.select(jobs_table.c.key, jobs_table.c.owner, jobs_table.c.lease_expires)
+                                .where(jobs_table.c.sweep == sweep, jobs_table.c.state == "running")).all()
+            stale = [k for k, owner, lease in rows
+                     if (lease is not None and lease < now) or _dead_here(owner, host)]
+            for chunk in _chunks(stale, 900):
+                # the attempt was not the job's fault: its driver died or lost touch
+                conn.execute(sa.update(jobs_table).where(jobs_table.c.key.in_(chunk), jobs_table.c.state == "running")
+                             .values(state="pending", owner=None, lease_expires=None,
+                                     attempts=sa.case((jobs_table.c.attempts > 0, jobs_table.c.attempts - 1), else_=0)))
+        return len(stale)
+
+    def retry_failed(self, sweep: str) -> int:
+        with self.engine.begin() as conn:
+            result = conn.execute(sa.update(jobs_table)
+                                  .where(jobs_table.c.sweep == sweep, jobs_table.c.state == "failed")
+                                  .values(state="pending", attempts=0, error=None, timed_out=False))
+        return int(result.rowcount or 0)
+
+    def claim(self, sweep: str, owner: str, n: int, lease_seconds: float, max_attempts: int) -> list[Claimed]:
+        """Atomically take up to ``n`` pending jobs of ``sweep`` for ``owner``."""
+        now = time.time()
+        c = jobs_table.c
+        query = (sa.select(c.key, c.dataset, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts)
+                 .where(c.sweep == sweep, c.active, c.state == "pending", c.attempts < max_attempts)
+                 .order_by(c.dataset, c.config_id, c.repeat, c.fold).limit(n)
+                 .with_for_update(skip_locked=True))
+        with self.engine.begin() as conn:
+            rows = conn.execute(query).all()
+            for chunk in _chunks([r.key for r in rows], 900):
+                conn.execute(sa.update(jobs_table).where(c.key.in_(chunk))
+                             .values(state="running", owner=owner, lease_expires=now + lease_seconds,
+                                     started_at=now, attempts=c.attempts + 1))
+        return [Claimed(r.key, r.dataset, r.fingerprint, r.config_id, r.repeat, r.fold, r.attempts + 1)
+                for r in rows]
+
+    def renew(self, owner: str, keys: Sequence[str], lease_seconds: float) -> None:
+        expires = time.time() + lease_seconds
+        with self.engine.begin() as conn:
+            for chunk in _chunks(list(keys), 900):
+                conn.execute(sa.update(jobs_table).where(jobs_table.c.key.in_(chunk), jobs_table.c.owner == owner,
+                                                         jobs_table.c.state == "running")
+                             .values(lease_expires=expires))
+
+    def release(self, owner: str, keys: Sequence[str], *, count_attempt: bool = False) -> None:
+        """Give claimed jobs back (pending) without a result."""
+        values: dict[str, Any] = dict(state="pending", owner=None, lease_expires=None)
+        if not count_attempt:
+            values["attempts"] = jobs_table.c.attempts - 1
+        with self.engine.begin() as conn:
+            for chunk in _chunks(list(keys), 900):
+                conn.execute(sa.update(jobs_table).where(jobs_table.c.key.in_(chunk), jobs_table.c.owner == owner,
+                                                         jobs_table.c.state == "running").values(**values))
+
+    def commit_results(self, owner: str, results: Sequence[Any], give_up: Mapping[str, str] | None = None) -> int:
+        """Write finished jobs in one transaction; returns how many were written.
+
+        ``results`` are :class:`workers.job.JobResult`; ok results become a
+        results row plus state ``done``, failed ones state ``failed`` with the
+        error. ``give_up`` maps keys of jobs whose worker died for the last
+        time to the reason. A result for a job this owner no longer holds
+        (its lease was taken over) is dropped, so no result is ever duplicated.
+        """
+        written = 0
+        with self.engine.begin() as conn:
+            held = self._held(conn, owner, [r.key for r in results] + list(give_up or ()))
+            ok = [r for r in results if r.ok and r.key in held]
+            if ok:
+                conn.execute(sa.insert(results_table), [_result_row(r) for r in ok])
+            for r in results:
+                if r.key not in held:
+                    continue
+                conn.execute(sa.update(jobs_table).where(jobs_table.c.key == r.key).values(
+                    state="done" if r.ok else "failed", owner=None, lease_expires=None,
+                    finished_at=r.finished_at, started_at=r.started_at, error=r.error, timed_out=r.timed_out))
+                written += 1
+            for key, reason in (give_up or {}).items():
+                if key in held:
+                    conn.execute(sa.update(jobs_table).where(jobs_table.c.key == key).values(
+                        state="failed", owner=None, lease_expires=None, finished_at=time.time(), error=reason))
+                    written += 1
+        return written
+
+    def _held(self, conn: sa.Connection, owner: str, keys: list[str]) -> set[str]:
+        held: set[str] = set()
+        for chunk in _chunks(keys, 900):
+            held.update(conn.execute(sa.select(jobs_table.c.key).where(
+                jobs_table.c.key.in_(chunk), jobs_table.c.owner == owner,
+                jobs_table.c.state == "running")).scalars())
+        return held
+
+    # ---- reading ---------------------------------------------------------------------------
+
+    def job_rows(self, sweep: str) -> list[sa.Row[Any]]:
+        """The active jobs of ``sweep`` with their results (outer join), for reports."""
+        j, r = jobs_table.c, results_table.c
+        query = (sa.select(j.key, j.dataset, j.config_id, j.repeat, j.fold, j.state, j.attempts, j.error,
+                           j.timed_out, r.accuracy, r.balanced_accuracy, r.kappa, r.train_accuracy,
+                           r.fit_seconds, r.predict_seconds, r.figures, r.worker_version, r.host)
+                 .select_from(jobs_table.outerjoin(results_table, j.key == r.key))
+                 .where(j.sweep == sweep, j.active))
+        with self.engine.connect() as conn:
+            return list(conn.execute(query).all())
+
+    def configurations(self) -> dict[str, tuple[str, str, dict[str, Any]]]:
+        """config_id -> (worker, label, parameters)."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(configurations_table)).all()
+        return {r.config_id: (r.worker, r.label, json.loads(r.params)) for r in rows}
+
+    def failures(self, sweep: str) -> list[tuple[str, str | None, bool]]:
+        """(key, error, timed_out) of the failed active jobs of ``sweep``."""
+        j = jobs_table.c
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(sa.select(j.key, j.error, j.timed_out).where(
+                j.sweep == sweep, j.active, j.state == "failed"))]
+
+    def model_text(self, key: str) -> str | None:
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(results_table.c.model_text).where(results_table.c.key == key)).scalar()
+
+
+def _result_row(r: Any) -> dict[str, Any]:
+    return dict(key=r.key, accuracy=r.accuracy, balanced_accuracy=r.balanced_accuracy, kappa=r.kappa,
+                train_accuracy=r.train_accuracy, fit_seconds=r.fit_seconds, predict_seconds=r.predict_seconds,
+                figures=json.dumps(r.figures, sort_keys=True), model_text=r.model_text,
+                worker_version=r.worker_version, host=r.host, finished_at=r.finished_at)
+
+
+def _engine(url: str) -> sa.Engine:
+    try:
+        if url.startswith("sqlite"):
+            engine = sa.create_engine(url, connect_args={"timeout": 60, "isolation_level": None})
+            sa.event.listen(engine, "connect", _sqlite_connect)
+            sa.event.listen(engine, "begin", _sqlite_begin)
+            return engine
+        return sa.create_engine(url, pool_pre_ping=True)
+    except (sa.exc.ArgumentError, ImportError, sa.exc.NoSuchModuleError) as exc:
+        raise StoreError(f"store {url!r}: not a usable SQLAlchemy URL: {_one_line(exc)}") from None
+
+
+def _sqlite_connect(dbapi_connection: Any, record: Any) -> None:
+    cursor = dbapi_connection.cursor()
+    cursor.execute("PRAGMA busy_timeout = 60000")
+    cursor.execute("PRAGMA synchronous = NORMAL")
+    cursor.execute("PRAGMA foreign_keys = ON")
+    cursor.close()
+
+
+def _sqlite_begin(conn: sa.Connection) -> None:
+    # every transaction takes the write lock up front: claims from two drivers cannot interleave
+    conn.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def _dead_here(owner: str | None, host: str) -> bool:
+    if not owner:
+        return True
+    parts = owner.split(":")
+    if len(parts) < 3 or parts[0] != host or not parts[1].isdigit():
+        return False
+    try:
+        os.kill(int(parts[1]), 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:
+        return False
+    return False
+
+
+def _chunks(items: Sequence[Any], size: int) -> Iterable[Sequence[Any]]:
+    for start in range(0, len(items), size):
+        yield items[start:start + size]
+
+
+def _where(url: str) -> str:
+    return url[len("sqlite:///"):] if url.startswith("sqlite:///") else sa.engine.make_url(url).render_as_string()
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(getattr(exc, "orig", None) or exc).split())[:300]

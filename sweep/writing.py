@@ -1,0 +1,49 @@
+"""Files that must be safe: written to a temporary name in the same folder, then renamed."""
+
+from __future__ import annotations
+
+import io
+import os
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any, Callable
+
+
+def atomic_write(path: str | Path, write: Callable[[Any], None], *, binary: bool = True) -> None:
+    """Call ``write(handle)`` on a temporary file beside ``path``, then move it into place."""
+    path = Path(path)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
+    try:
+        with os.fdopen(fd, "wb" if binary else "w") as handle:
+            write(handle)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def write_frame(frame: Any, fmt: str, out: str | None) -> None:
+    """Write ``frame`` as csv, parquet or json lines to ``out`` or standard output."""
+    if fmt == "parquet":
+        data = _parquet_bytes(frame)
+    elif fmt == "csv":
+        data = frame.to_csv(index=False).encode()
+    else:
+        data = frame.to_json(orient="records", lines=True).encode()
+    if out is None:
+        sys.stdout.flush()
+        sys.stdout.buffer.write(data)
+        sys.stdout.buffer.flush()
+    else:
+        atomic_write(out, lambda handle: handle.write(data))
+
+
+def _parquet_bytes(frame: Any) -> bytes:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    buffer = io.BytesIO()
+    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), buffer)
+    return buffer.getvalue()
