@@ -1,0 +1,292 @@
+"""The FARC-HD fuzzy association rule-based classifier with pluggable fuzzy reasoning."""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from workers.fuzzy.genetic import chc, penalized_fitness
+from workers.fuzzy.mining import RuleSet, mine_rules
+from workers.fuzzy.partitions import FuzzyPartition, MembershipCache, build_partition, memberships
+from workers.fuzzy.prescreen import prescreen
+from workers.fuzzy.reasoning import INTEGRALS, MEASURES, METHODS, TNORMS, class_scores, decide, matching_degrees
+from workers.fuzzy.text import rule_base_text
+
+#: log10 of the power exponent q is 4 * gene: genes in [-0.5, 0.5) give q in [0.01, 100)
+Q_DECADES = 4.0
+
+
+def exponent_from_gene(gene: np.ndarray) -> np.ndarray:
+    """The power measure's exponent for genes in [-0.5, 0.5]: ``q = 10 ** (4 * gene)``, in [0.01, 100].
+
+    Gene 0 (the initial chromosome) is q = 1, the cardinality measure; the
+    logarithmic map gives (0.01, 1) and (1, 100) the same share of the gene.
+    """
+    return 10.0 ** (Q_DECADES * np.clip(gene, -0.5, 0.5))
+
+
+class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
+    """Fuzzy association rule-based classifier (FARC-HD, Alcalá-Fdez, Alcalá, Herrera 2011).
+
+    Fitting runs the method's stages on the training part: uniform
+    triangular fuzzy partitions (:mod:`~workers.fuzzy.partitions`), fuzzy
+    association rule mining per class (:mod:`~workers.fuzzy.mining`),
+    prescreening by subgroup discovery (:mod:`~workers.fuzzy.prescreen`), and
+    CHC genetic rule selection with lateral tuning (:mod:`~workers.fuzzy.genetic`).
+    Prediction uses the chosen fuzzy reasoning method (:mod:`~workers.fuzzy.reasoning`).
+
+    Parameters
+    ----------
+    labels : int, default=5
+        Linguistic terms per numeric variable.
+    min_support : float, default=0.05
+        Minimum fuzzy support, scaled per class by the class's share of the data.
+    min_confidence : float, default=0.8
+        Minimum confidence of a candidate rule; a node of the search tree
+        whose confidence exceeds it is not expanded.
+    depth : int, default=3
+        Maximum antecedents per rule.
+    cover_limit : int, default=2
+        Times a pattern may be covered in prescreening before it is removed (kt).
+    population : int, default=50
+        CHC population size.
+    evaluations : int, default=15000
+        CHC budget of fitness evaluations.
+    penalty : float, default=0.15
+        The delta of the fitness ``accuracy - delta * NR0 / (NR0 - NR + 1)``.
+    reasoning : {"winning_rule", "additive", "choquet", "sugeno_integral", "choquet_t"}, default="additive"
+        Fuzzy reasoning method.
+    measure : {"cardinality", "power", "sugeno_lambda"}, default="power"
+        Fuzzy measure of the integral methods (ignored by the others).
+    power_exponent : float or None, default=None
+        Exponent q of the power measure; None learns one per class in the
+        genetic stage (``q = 10 ** (4 * gene)``, see :func:`exponent_from_gene`).
+    tnorm : {"product", "minimum", "lukasiewicz", "hamacher"}, default="product"
+        T-norm of ``"choquet_t"``.
+    rule_weight : {"certainty", "penalized_certainty"}, default="certainty"
+        Rule weight: certainty factor (the confidence) or penalized certainty factor.
+    tuning : bool, default=True
+        Lateral tuning of the labels in the genetic stage.
+    random_state : int, numpy Generator/RandomState or None, default=None
+        Seed of the genetic stage; an int makes ``fit`` deterministic.
+    nominal_features : array-like of bool or int, optional
+        Mask or indices of the nominal columns (integer category codes).
+    feature_names, class_names : sequence of str, optional
+        Names used in the rule text only; ``class_names[c]`` names class
+        label ``c`` (integer labels), otherwise ``class_<label>``.
+    category_names : sequence of (sequence of str or None), optional
+        Per feature, names of the category codes of a nominal feature (rule text only).
+
+    Attributes
+    ----------
+    classes_ : ndarray
+        Class labels seen in fit.
+    partition_ : FuzzyPartition
+        The data base (untuned); ``displacement_`` holds the lateral displacements.
+    rules_ : RuleSet
+        The selected rule base.
+    power_exponents_ : ndarray of shape (n_classes,) or None
+        q per class, for the power measure.
+    n_rules_mined_, n_rules_screened_, n_rules_selected_ : int
+        Rule counts after mining, prescreening and genetic selection.
+    default_class_ : int
+        Index of the training part's majority class (the uncovered examples' prediction).
+    fitness_, n_evaluations_, n_restarts_ : float, int, int
+        Best fitness, evaluations used, and CHC restarts.
+
+    Notes
+    -----
+    Choices left open by the published method are documented in the stage
+    modules. Here: during the genetic stage an uncovered training example
+    counts as misclassified (a rule base that covers less is worse), while
+    ``predict`` gives it the majority class; the rule weights stay those of
+    the mining stage (computed with the untuned labels).
+    """
+
+    def __init__(self, labels: int = 5, min_support: float = 0.05, min_confidence: float = 0.8,
+                 depth: int = 3, cover_limit: int = 2, population: int = 50, evaluations: int = 15000,
+                 penalty: float = 0.15, reasoning: str = "additive", measure: str = "power",
+                 power_exponent: float | None = None, tnorm: str = "product",
+                 rule_weight: str = "certainty", tuning: bool = True, random_state: Any = None,
+                 nominal_features: Any = None, feature_names: Sequence[str] | None = None,
+                 class_names: Sequence[str] | None = None,
+                 category_names: Sequence[Sequence[str] | None] | None = None) -> None:
+        self.labels = labels
+        self.min_support = min_support
+        self.min_confidence = min_confidence
+        self.depth = depth
+        self.cover_limit = cover_limit
+        self.population = population
+        self.evaluations = evaluations
+        self.penalty = penalty
+        self.reasoning = reasoning
+        self.measure = measure
+        self.power_exponent = power_exponent
+        self.tnorm = tnorm
+        self.rule_weight = rule_weight
+        self.tuning = tuning
+        self.random_state = random_state
+        self.nominal_features = nominal_features
+        self.feature_names = feature_names
+        self.class_names = class_names
+        self.category_names = category_names
+
+    # ---------------------------------------------------------------- fit
+    def fit(self, X: Any, y: Any) -> FuzzyRuleClassifier:
+        """Run partitions, mining, prescreening and the genetic stage on ``(X, y)``."""
+        self._check_params()
+        X, y = validate_data(self, X, y, dtype=np.float64)
+        check_classification_targets(y)
+        self.classes_, y_idx = np.unique(y, return_inverse=True)
+        n_classes = len(self.classes_)
+        nominal = self._nominal_mask(X.shape[1])
+        self.default_class_ = int(np.argmax(np.bincount(y_idx, minlength=n_classes)))
+        self.partition_ = build_partition(X, nominal, self.labels)
+        cache = MembershipCache(self.partition_, X)
+        M = cache(None)
+        mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
+                           self.min_confidence, self.depth, self.rule_weight)
+        screened = mined.take(prescreen(matching_degrees(M, mined.items), mined.classes, y_idx,
+                                        self.cover_limit))
+        self.n_rules_mined_ = len(mined)
+        self.n_rules_screened_ = len(screened)
+        self._select_and_tune(cache, screened, y_idx, n_classes)
+        self.n_rules_selected_ = len(self.rules_)
+        return self
+
+    def _select_and_tune(self, cache: MembershipCache, screened: RuleSet, y: np.ndarray,
+                         n_classes: int) -> None:
+        n_disp = self.partition_.n_numeric_items if self.tuning else 0
+        learn_q = self._uses_power() and self.power_exponent is None
+        n_q = n_classes if learn_q else 0
+        fitness = _Fitness(cache, screened, y, n_classes, self, n_disp, learn_q)
+        if len(screened) == 0 or self.evaluations < 1:
+            real, bits = np.zeros(n_disp + n_q), np.ones(len(screened), dtype=bool)
+            self.fitness_, self.n_evaluations_, self.n_restarts_ = fitness(real, bits), 0, 0
+        else:
+            out = chc(fitness, n_disp + n_q, len(screened), self.population, self.evaluations,
+                      _generator(self.random_state))
+            real, bits = out.real, out.bits
+            self.fitness_, self.n_evaluations_, self.n_restarts_ = out.fitness, out.evaluations, out.restarts
+        self.displacement_ = real[:n_disp] if self.tuning else np.zeros(self.partition_.n_numeric_items)
+        self.power_exponents_ = self._exponents(real[n_disp:], n_classes) if self._uses_power() else None
+        self.rules_ = screened.take(np.flatnonzero(bits))
+
+    # ---------------------------------------------------------------- predict
+    def class_scores(self, X: Any) -> np.ndarray:
+        """Aggregated association degrees per class, shape ``(n_samples, n_classes)``."""
+        check_is_fitted(self, "rules_")
+        X = validate_data(self, X, dtype=np.float64, reset=False)
+        M = memberships(self.partition_, X, self.displacement_)
+        return _scores(M, self.rules_, len(self.classes_), self, self.power_exponents_)
+
+    def predict(self, X: Any) -> np.ndarray:
+        """Class of the largest aggregated value; the majority class where no rule fires."""
+        pred, _ = decide(self.class_scores(X), self.default_class_)
+        return self.classes_[pred]
+
+    def predict_proba(self, X: Any) -> np.ndarray:
+        """Class scores normalised to sum 1 (one-hot on the majority class where uncovered)."""
+        s = self.class_scores(X)
+        total = s.sum(axis=1, keepdims=True)
+        out = np.divide(s, total, out=np.zeros_like(s), where=total > 0)
+        out[total[:, 0] <= 0, self.default_class_] = 1.0
+        return out
+
+    def uncovered(self, X: Any) -> np.ndarray:
+        """Boolean mask of the examples no rule covers."""
+        return decide(self.class_scores(X), self.default_class_)[1]
+
+    def rule_text(self) -> str:
+        """The rule base as readable text, one rule per line."""
+        check_is_fitted(self, "rules_")
+        return rule_base_text(self)
+
+    # ---------------------------------------------------------------- helpers
+    def _uses_power(self) -> bool:
+        return self.reasoning in INTEGRALS and self.measure == "power"
+
+    def _exponents(self, genes: np.ndarray, n_classes: int) -> np.ndarray:
+        if self.power_exponent is not None:
+            return np.full(n_classes, float(self.power_exponent))
+        return exponent_from_gene(genes)
+
+    def _nominal_mask(self, n_features: int) -> np.ndarray:
+        if self.nominal_features is None:
+            return np.zeros(n_features, dtype=bool)
+        given = np.asarray(self.nominal_features)
+        if given.dtype == bool:
+            if given.shape != (n_features,):
+                raise ValueError(f"nominal_features: a mask needs {n_features} entries, got {given.shape}")
+            return given.copy()
+        mask = np.zeros(n_features, dtype=bool)
+        mask[given.astype(int)] = True
+        return mask
+
+    def _check_params(self) -> None:
+        checks = [
+            ("labels", isinstance(self.labels, (int, np.integer)) and self.labels >= 2, "an integer >= 2"),
+            ("min_support", 0 <= self.min_support <= 1, "a number in [0, 1]"),
+            ("min_confidence", 0 <= self.min_confidence <= 1, "a number in [0, 1]"),
+            ("depth", isinstance(self.depth, (int, np.integer)) and self.depth >= 1, "an integer >= 1"),
+            ("cover_limit", isinstance(self.cover_limit, (int, np.integer)) and self.cover_limit >= 1,
+             "an integer >= 1"),
+            ("population", isinstance(self.population, (int, np.integer)) and self.population >= 2,
+             "an integer >= 2"),
+            ("evaluations", isinstance(self.evaluations, (int, np.integer)) and self.evaluations >= 0,
+             "an integer >= 0"),
+            ("penalty", self.penalty >= 0, "a number >= 0"),
+            ("reasoning", self.reasoning in METHODS, f"one of {METHODS}"),
+            ("measure", self.measure in MEASURES, f"one of {MEASURES}"),
+            ("power_exponent", self.power_exponent is None or 0 < self.power_exponent <= 100,
+             "None or a number in (0, 100]"),
+            ("tnorm", self.tnorm in TNORMS, f"one of {TNORMS}"),
+            ("rule_weight", self.rule_weight in ("certainty", "penalized_certainty"),
+             "one of ('certainty', 'penalized_certainty')"),
+        ]
+        for name, ok, allowed in checks:
+            if not ok:
+                raise ValueError(f"FuzzyRuleClassifier: {name} must be {allowed}, got {getattr(self, name)!r}")
+
+
+class _Fitness:
+    """Fitness of a chromosome (real part, bits) on the training part, vectorised over examples."""
+
+    def __init__(self, cache: MembershipCache, rules: RuleSet, y: np.ndarray, n_classes: int,
+                 est: FuzzyRuleClassifier, n_disp: int, learn_q: bool) -> None:
+        self.cache, self.rules, self.y, self.n_classes = cache, rules, y, n_classes
+        self.est, self.n_disp, self.learn_q = est, n_disp, learn_q
+        self.fixed_q = est._exponents(np.zeros(0), n_classes) if est._uses_power() and not learn_q else None
+        self.zero = np.zeros(cache.partition.n_numeric_items)
+
+    def __call__(self, real: np.ndarray, bits: np.ndarray) -> float:
+        n0, n_sel = len(bits), int(bits.sum())
+        accuracy = 0.0
+        if n_sel:
+            M = self.cache(real[: self.n_disp] if self.n_disp else self.zero)
+            q = exponent_from_gene(real[self.n_disp:]) if self.learn_q else self.fixed_q
+            scores = _scores(M, self.rules.take(bits), self.n_classes, self.est, q)
+            hit = (np.argmax(scores, axis=1) == self.y) & (scores.max(axis=1) > 0)
+            accuracy = hit.mean()
+        return penalized_fitness(accuracy, n0, n_sel, self.est.penalty)
+
+
+def _scores(M: np.ndarray, rules: RuleSet, n_classes: int, est: FuzzyRuleClassifier,
+            q: np.ndarray | None) -> np.ndarray:
+    if len(rules) == 0:
+        return np.zeros((M.shape[1], n_classes))
+    assoc = matching_degrees(M, rules.items)
+    assoc *= rules.weight[:, None]
+    return class_scores(assoc, rules.classes, n_classes, est.reasoning, est.measure, q, est.tnorm)
+
+
+def _generator(random_state: Any) -> np.random.Generator:
+    if isinstance(random_state, np.random.Generator):
+        return random_state
+    if isinstance(random_state, np.random.RandomState):
+        return np.random.default_rng(random_state.randint(0, 2**31 - 1))
+    return np.random.default_rng(random_state)

@@ -1,0 +1,182 @@
+"""Genetic rule selection and lateral tuning: the CHC evolutionary model.
+
+A chromosome has a real part (genes in [-0.5, 0.5): the lateral
+displacements of the labels, and for the power measure one gene per class
+for the exponent q) and a binary part (one bit per prescreened rule: is it
+in the rule base). CHC (Eshelman 1991) as used by FARC-HD:
+
+* the initial population holds one chromosome with every real gene 0 and
+  every bit 1 (the untuned, unreduced rule base); the others are random;
+* each generation pairs the population at random; a pair mates only when
+  half its Hamming distance exceeds the threshold L (incest prevention),
+  the distance counted on the real part Gray-coded with 30 bits per gene
+  plus the binary part; L starts at ``(30 * n_real + n_bits) / 4``;
+* mating: PCBLX-alpha (the parent-centric BLX, alpha = 1) for the real
+  part, HUX (exactly half of the differing bits exchanged) for the bits;
+* elitist survival: the best ``population`` of parents and offspring (a
+  parent wins a tie, so that an offspring must be strictly better);
+* L drops by 1 after a generation in which no offspring survived; when it
+  falls below 0 the population restarts: the best chromosome is kept, the
+  others are drawn at random, and L is reset;
+* the run stops after ``evaluations`` fitness evaluations.
+
+Choices left open by the method, documented here: the decrement of L by
+one (Eshelman's original), alpha = 1, and random restarts around nothing
+but the best chromosome. Everything random comes from one
+``numpy.random.Generator``, so a seed fixes the run.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+#: bits per real gene in the Gray code of the incest prevention
+BITS_PER_GENE = 30
+#: the alpha of PCBLX-alpha
+ALPHA = 1.0
+LOW, HIGH = -0.5, 0.5
+
+
+def penalized_fitness(accuracy: float, n_initial: int, n_selected: int, penalty: float) -> float:
+    """``accuracy - penalty * n_initial / (n_initial - n_selected + 1)`` (the FARC-HD fitness)."""
+    return accuracy - penalty * n_initial / (n_initial - n_selected + 1.0)
+
+
+def gray_code(real: np.ndarray) -> np.ndarray:
+    """Gray codes (uint64) of genes in [-0.5, 0.5] quantised to 30 bits."""
+    top = (1 << BITS_PER_GENE) - 1
+    u = np.clip(np.floor((real - LOW) / (HIGH - LOW) * (1 << BITS_PER_GENE)), 0, top).astype(np.uint64)
+    return u ^ (u >> np.uint64(1))
+
+
+def hamming(gray_a: np.ndarray, bits_a: np.ndarray, gray_b: np.ndarray, bits_b: np.ndarray) -> np.ndarray:
+    """Hamming distance between chromosomes (last axis: genes), Gray-coded real part plus bits."""
+    real = np.bitwise_count(gray_a ^ gray_b).sum(axis=-1, dtype=np.int64)
+    return real + (bits_a != bits_b).sum(axis=-1)
+
+
+@dataclass
+class Outcome:
+    """The result of a CHC run."""
+
+    real: np.ndarray
+    bits: np.ndarray
+    fitness: float
+    evaluations: int
+    restarts: int
+    generations: int
+
+
+FitnessFn = Callable[[np.ndarray, np.ndarray], float]
+
+
+def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluations: int,
+        rng: np.random.Generator) -> Outcome:
+    """Maximise ``fitness(real, bits)`` with CHC.
+
+    Parameters
+    ----------
+    fitness : callable
+        ``fitness(real, bits) -> float`` for one chromosome (``real`` float
+        array of ``n_real`` genes in [-0.5, 0.5), ``bits`` bool array).
+    n_real, n_bits : int
+        Chromosome layout.
+    population : int
+        Population size (at least 2).
+    evaluations : int
+        Budget of fitness evaluations (at least 1).
+    rng : numpy.random.Generator
+    """
+    pop = max(2, population)
+    real = rng.uniform(LOW, HIGH, size=(pop, n_real))
+    bits = rng.random((pop, n_bits)) < 0.5
+    real[0] = 0.0
+    bits[0] = True
+    budget = max(1, evaluations)
+    size = min(pop, budget)
+    real, bits = real[:size], bits[:size]
+    fit = np.array([fitness(real[i], bits[i]) for i in range(size)])
+    used = size
+    threshold0 = (BITS_PER_GENE * n_real + n_bits) / 4.0
+    threshold = threshold0
+    restarts = generations = 0
+    while used < budget:
+        generations += 1
+        kids_real, kids_bits = _offspring(real, bits, threshold, rng)
+        kids_real, kids_bits = kids_real[: budget - used], kids_bits[: budget - used]
+        if len(kids_real):
+            kids_fit = np.array([fitness(kids_real[i], kids_bits[i]) for i in range(len(kids_real))])
+            used += len(kids_real)
+            real, bits, fit, new = _survive(real, bits, fit, kids_real, kids_bits, kids_fit, size)
+        else:
+            new = False
+        if not new:
+            threshold -= 1.0
+            if threshold < 0:
+                restarts += 1
+                real, bits, fit, used = _restart(real, bits, fit, fitness, rng, used, budget)
+                threshold = threshold0
+    best = int(np.argmax(fit))
+    return Outcome(real[best].copy(), bits[best].copy(), float(fit[best]), used, restarts, generations)
+
+
+def _offspring(real, bits, threshold, rng):
+    order = rng.permutation(len(real))
+    a, b = order[0::2][: len(order) // 2], order[1::2]
+    gray = gray_code(real)
+    mate = hamming(gray[a], bits[a], gray[b], bits[b]) / 2.0 > threshold
+    a, b = a[mate], b[mate]
+    if len(a) == 0:
+        return real[:0], bits[:0]
+    r1, r2 = pcblx(real[a], real[b], rng)
+    b1, b2 = hux(bits[a], bits[b], rng)
+    kids_real = np.stack([r1, r2], axis=1).reshape(-1, real.shape[1])
+    kids_bits = np.stack([b1, b2], axis=1).reshape(-1, bits.shape[1])
+    return kids_real, kids_bits
+
+
+def pcblx(x: np.ndarray, y: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """PCBLX-alpha: each offspring gene uniform around its own parent's, within [-0.5, 0.5)."""
+    spread = ALPHA * np.abs(x - y)
+    kids = []
+    for centre in (x, y):
+        lo = np.maximum(LOW, centre - spread)
+        hi = np.minimum(HIGH, centre + spread)
+        kids.append(np.minimum(lo + rng.random(x.shape) * (hi - lo), np.nextafter(HIGH, LOW)))
+    return kids[0], kids[1]
+
+
+def hux(x: np.ndarray, y: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """HUX: exchange exactly half (rounded down) of the differing bits, chosen at random."""
+    k1, k2 = x.copy(), y.copy()
+    for i in range(len(x)):
+        diff = np.flatnonzero(x[i] != y[i])
+        swap = rng.permutation(diff)[: len(diff) // 2]
+        k1[i, swap], k2[i, swap] = y[i, swap], x[i, swap]
+    return k1, k2
+
+
+def _survive(real, bits, fit, kids_real, kids_bits, kids_fit, size):
+    all_fit = np.concatenate([fit, kids_fit])
+    order = np.argsort(-all_fit, kind="stable")[:size]
+    new = bool((order >= len(fit)).any())
+    return (np.concatenate([real, kids_real])[order], np.concatenate([bits, kids_bits])[order],
+            all_fit[order], new)
+
+
+def _restart(real, bits, fit, fitness, rng, used, budget):
+    best = int(np.argmax(fit))
+    size = len(real)
+    new_real = rng.uniform(LOW, HIGH, size=real.shape)
+    new_bits = rng.random(bits.shape) < 0.5
+    new_real[0], new_bits[0] = real[best], bits[best]
+    new_fit = np.full(size, -np.inf)
+    new_fit[0] = fit[best]
+    n_new = min(size - 1, budget - used)
+    for i in range(1, 1 + n_new):
+        new_fit[i] = fitness(new_real[i], new_bits[i])
+    keep = np.arange(1 + n_new)
+    return new_real[keep], new_bits[keep], new_fit[keep], used + n_new

@@ -1,0 +1,139 @@
+"""Fuzzy reasoning: matching degrees, association degrees, class aggregation.
+
+The association degree of rule r with example x is ``mu_r(x) * weight_r``.
+For each class the association degrees of that class's rules are
+aggregated by the fuzzy reasoning method:
+
+* ``"winning_rule"``: the maximum;
+* ``"additive"``: the sum (the additive combination; normalising by the
+  largest sum would not change the predicted class);
+* ``"choquet"``, ``"sugeno_integral"``, ``"choquet_t"``: the Choquet
+  integral, the Sugeno integral, or the CT-integral generalisation of the
+  Choquet integral with a t-norm (Lucca et al.), computed by
+  :mod:`workers.fuzzy.measures` with the fuzzy measure ``"cardinality"``,
+  ``"power"`` (exponent q per class) or ``"sugeno_lambda"`` (data-driven:
+  the densities are the association degrees being aggregated).
+
+Choice left open, documented here: the integrals aggregate, per class, a
+vector with one entry per rule of that class in the rule base, the rules
+that do not fire contributing 0, so that the cardinality and power
+measures count the class's rules (``|A| / n`` with n the number of rules of
+the class), after Barrenechea et al. (2013) and Lucca et al. (2016). The
+vectors are zero-padded to the longest class and cut to the most rules
+firing on one example, the measures receiving the true ``n`` per class.
+
+The predicted class is the one with the largest value (the first such
+class on ties); an example where every class gets 0 is *uncovered*.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+METHODS = ("winning_rule", "additive", "choquet", "sugeno_integral", "choquet_t")
+INTEGRALS = ("choquet", "sugeno_integral", "choquet_t")
+MEASURES = ("cardinality", "power", "sugeno_lambda")
+TNORMS = ("product", "minimum", "lukasiewicz", "hamacher")
+
+
+def matching_degrees(M: np.ndarray, items: np.ndarray) -> np.ndarray:
+    """Matching degrees ``(n_rules, n_examples)``: product of the antecedents' memberships.
+
+    ``M`` is the ``(n_items + 1, n_examples)`` membership matrix whose last
+    row (ones) pads rules with fewer antecedents; ``items`` is ``(n_rules, depth)``.
+    """
+    n_rules, depth = items.shape
+    out = np.take(M, items[:, 0], axis=0)
+    if depth > 1:
+        buf = np.empty_like(out)
+        pad = M.shape[0] - 1
+        for k in range(1, depth):
+            col = items[:, k]
+            if (col == pad).all():
+                continue
+            np.take(M, col, axis=0, out=buf)
+            out *= buf
+    return out
+
+
+def class_scores(assoc: np.ndarray, rule_class: np.ndarray, n_classes: int, method: str,
+                 measure: str = "power", q: np.ndarray | float | None = None,
+                 tnorm: str = "product") -> np.ndarray:
+    """Aggregated association degrees ``(n_examples, n_classes)``.
+
+    Parameters
+    ----------
+    assoc : ndarray of shape (n_rules, n_examples)
+        Association degrees (matching degree times rule weight).
+    rule_class : ndarray of shape (n_rules,)
+        Consequent class of each rule.
+    n_classes : int
+    method : str
+        One of :data:`METHODS`.
+    measure : str
+        For the integrals, one of :data:`MEASURES`.
+    q : float or ndarray of shape (n_classes,), optional
+        Exponents of the power measure.
+    tnorm : str
+        For ``"choquet_t"``, one of :data:`TNORMS`.
+    """
+    n = assoc.shape[1]
+    if method == "additive":
+        onehot = np.zeros((len(rule_class), n_classes))
+        onehot[np.arange(len(rule_class)), rule_class] = 1.0
+        return assoc.T @ onehot
+    if method == "winning_rule":
+        out = np.zeros((n, n_classes))
+        for c in range(n_classes):
+            sel = rule_class == c
+            if sel.any():
+                out[:, c] = assoc[sel].max(axis=0)
+        return out
+    return _integral(assoc, rule_class, n_classes, method, measure, q, tnorm)
+
+
+def padded_degrees(assoc: np.ndarray, rule_class: np.ndarray,
+                   n_classes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Association degrees as ``(n_examples, n_classes, k)``, sorted ascending along the last axis.
+
+    ``k`` is the largest number of rules of one class firing on one example
+    (at least 1): entries beyond it are zeros of every row and change no
+    integral. Also returns the number of rules per class.
+    """
+    n = assoc.shape[1]
+    counts = np.bincount(rule_class, minlength=n_classes)
+    width = max(1, int(counts.max(initial=0)))
+    order = np.argsort(rule_class, kind="stable")
+    start = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    rank = np.arange(len(order)) - start[rule_class[order]]
+    slot = rule_class[order] * width + rank
+    flat = np.zeros((n, n_classes * width))
+    flat[:, slot] = assoc[order].T
+    cube = flat.reshape(n, n_classes, width)
+    cube.sort(axis=-1)
+    fired = int((cube > 0).sum(axis=-1).max(initial=0))
+    return cube[..., width - max(fired, 1):], counts
+
+
+def _integral(assoc, rule_class, n_classes, method, measure, q, tnorm):
+    from workers.fuzzy import measures as fm
+
+    cube, counts = padded_degrees(assoc, rule_class, n_classes)
+    params: dict = {}
+    if measure in ("cardinality", "power"):
+        params["n"] = np.maximum(counts, 1)
+    if measure == "power":
+        params["q"] = np.broadcast_to(np.asarray(1.0 if q is None else q, dtype=float), (n_classes,))
+    if method == "choquet":
+        return fm.choquet(cube, measure, **params)
+    if method == "sugeno_integral":
+        return fm.sugeno_integral(cube, measure, **params)
+    return fm.generalized_choquet(cube, measure, tnorm, **params)
+
+
+def decide(scores: np.ndarray, default: int) -> tuple[np.ndarray, np.ndarray]:
+    """Predicted class index per example and the uncovered mask (``default`` where uncovered)."""
+    uncovered = ~(scores.max(axis=1, initial=0.0) > 0)
+    pred = np.argmax(scores, axis=1)
+    pred[uncovered] = default
+    return pred, uncovered
