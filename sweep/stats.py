@@ -490,7 +490,8 @@ _ADJUST = {"holm": holm, "finner": finner, "li": li, "bonferroni": bonferroni}
 
 def _z_test(avg: np.ndarray, n: int, pairs: list[tuple[int, int]]) -> tuple[np.ndarray, np.ndarray]:
     se = _rank_se(avg.size, n)
-    z = np.array([(avg[i] - avg[j]) / se for i, j in pairs], dtype=float)
+    idx = np.asarray(pairs, dtype=np.intp).reshape(-1, 2)
+    z = (avg[idx[:, 0]] - avg[idx[:, 1]]) / se
     return z, 2.0 * _st.norm.sf(np.abs(z))
 
 
@@ -528,7 +529,8 @@ def all_pairs(average_ranks, n: int, *, method: str = "shaffer", alpha: float = 
     """
     avg = np.asarray(average_ranks, dtype=float)
     k = avg.size
-    pairs = [(i, j) for i in range(k) for j in range(i + 1, k)]
+    rows, cols = np.triu_indices(k, 1)
+    pairs = list(zip(rows.tolist(), cols.tolist()))
     z, p = _z_test(avg, n, pairs)
     if method == "shaffer":
         adj = shaffer(p, k)

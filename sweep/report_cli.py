@@ -1,0 +1,183 @@
+"""The report subcommands of ``foldsweep``: best, table, compare, rank, plot.
+
+::
+
+    foldsweep best SPEC [--metric M] [--where FILTER] [--json] [--out FILE]
+    foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--where FILTER] [--out FILE] [--json]
+    foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
+    foldsweep rank SPEC [--metric M] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
+    foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--metric M] [--control CONFIG] [--json]
+
+A CONFIG is a configuration id (or a unique prefix of one) or a parameter
+filter such as ``reasoning=choquet,measure=power``. Every handler returns an
+exit code and raises :class:`~sweep.errors.FoldsweepError` subclasses for
+bad input; ``sweep.cli.main`` prints those on one line (exit code 2).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from typing import Any
+
+__all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot"]
+
+
+def add_commands(subparsers: Any) -> None:
+    """Add the report subcommands to an ``argparse`` subparsers object."""
+    best = _command(subparsers, "best", "per dataset: the winning configuration, mean ± sd, margin to the runner-up")
+    best.set_defaults(func=cmd_best)
+
+    table = _command(subparsers, "table", "datasets x configurations table of cell means")
+    table.add_argument("--format", choices=("markdown", "latex", "csv"), default="markdown")
+    table.add_argument("--sd", action="store_true", help="show mean ± standard deviation")
+    table.add_argument("--pivot", default=None, metavar="PARAM",
+                       help="columns are this parameter's values (fix the others with --where)")
+    table.add_argument("--decimals", type=int, default=3)
+    table.set_defaults(func=cmd_table)
+
+    compare = _command(subparsers, "compare", "two configurations paired over datasets: wins/ties/losses, sign test, Wilcoxon",
+                       where=False)
+    compare.add_argument("config_a", metavar="CONFIG_A")
+    compare.add_argument("config_b", metavar="CONFIG_B")
+    compare.add_argument("--zero-method", choices=("demsar", "wilcox", "pratt"), default="demsar",
+                         help="zero differences: split between R+ and R- (Demšar), dropped (wilcox) or ranked then dropped (pratt)")
+    compare.add_argument("--method", choices=("auto", "exact", "approx"), default="auto", help="Wilcoxon p-value")
+    compare.set_defaults(func=cmd_compare)
+
+    rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
+    _rank_options(rank)
+    rank.add_argument("--limit", type=int, default=20, help="rows shown of rankings and post-hoc tables")
+    rank.set_defaults(func=cmd_rank)
+
+    plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
+    plot.add_argument("--kind", choices=("ranks", "heatmap"), default="ranks")
+    plot.add_argument("--out", required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
+    plot.add_argument("--pivot", default=None, metavar="PARAM", help="heatmap columns are this parameter's values")
+    plot.add_argument("--limit", type=int, default=20, help="configurations drawn in the rank plot (best first)")
+    _rank_options(plot)
+    plot.set_defaults(func=cmd_plot)
+
+
+def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: bool = True) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(name, help=text, description=text)
+    parser.add_argument("spec", metavar="SPEC", help="the sweep's TOML spec")
+    parser.add_argument("--metric", default="accuracy",
+                        help="result column (default accuracy); direction: higher for accuracy-like, lower for times and rule counts")
+    direction = parser.add_mutually_exclusive_group()
+    direction.add_argument("--higher-is-better", dest="higher", action="store_const", const=True, default=None,
+                           help="override the metric's direction")
+    direction.add_argument("--lower-is-better", dest="higher", action="store_const", const=False)
+    if where:
+        parser.add_argument("--where", default=None, metavar="FILTER",
+                            help="only configurations matching an id or a filter such as reasoning=choquet,measure=power")
+    if out:
+        parser.add_argument("--out", default=None, metavar="FILE", help="write to FILE (atomically) instead of standard output")
+    parser.add_argument("--json", action="store_true", help="machine-readable output")
+    return parser
+
+
+def _rank_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
+    parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
+                        default="auto", help="adjustment: holm against a control, shaffer over all pairs (auto)")
+    parser.add_argument("--alpha", type=float, default=0.05)
+    parser.add_argument("--tie-correction", action="store_true",
+                        help="divide chi2_F by the tie correction, as scipy.stats.friedmanchisquare (default: Demšar's formula)")
+
+
+def _load(args: argparse.Namespace):
+    from sweep.results import load_sweep_results
+
+    return load_sweep_results(args.spec)
+
+
+def _emit(args: argparse.Namespace, text: str) -> None:
+    from sweep.report import write_text_atomic
+
+    if getattr(args, "out", None):
+        write_text_atomic(args.out, text)
+    else:
+        sys.stdout.write(text)
+        sys.stdout.flush()
+
+
+def _dumps(data: Any) -> str:
+    return json.dumps(data, indent=2, ensure_ascii=False, allow_nan=False, default=str) + "\n"
+
+
+def cmd_best(args: argparse.Namespace) -> int:
+    from sweep import report
+
+    res = _load(args)
+    frame = report.best(res, args.metric, where=args.where, higher=args.higher)
+    if args.json:
+        _emit(args, _dumps(report.records(frame)))
+    else:
+        _emit(args, _best_text(frame))
+    return 0
+
+
+def _best_text(frame) -> str:
+    lines = []
+    for r in frame.itertuples():
+        if r.config_id is None or r.folds == 0:
+            lines.append(f"{r.dataset}: no finished jobs yet")
+            continue
+        sd = "?" if r.sd != r.sd else f"{r.sd:.4f}"
+        planned = "?" if r.planned != r.planned else f"{int(r.planned)}"
+        state = "" if r.complete else "  [incomplete]"
+        params = ", ".join(f"{k}={v}" for k, v in (r.params or {}).items())
+        margin = "no runner-up" if r.margin != r.margin else f"margin {r.margin:.4f} over {r.runner_up}"
+        lines.append(f"{r.dataset}: {r.config_id} ({r.worker}; {params}) {r.metric} {r.mean:.4f} ± {sd}, "
+                     f"{r.folds}/{planned} folds, {margin}{state}")
+    return "\n".join(lines) + "\n"
+
+
+def cmd_table(args: argparse.Namespace) -> int:
+    from sweep import report
+
+    res = _load(args)
+    fmt = "json" if args.json else args.format
+    _emit(args, report.table(res, args.metric, fmt=fmt, sd=args.sd, pivot=args.pivot, where=args.where,
+                             decimals=args.decimals, higher=args.higher))
+    return 0
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    from sweep import report
+
+    res = _load(args)
+    comp = report.compare(res, args.config_a, args.config_b, args.metric, zero_method=args.zero_method,
+                          method=args.method, higher=args.higher)
+    _emit(args, _dumps(comp.to_dict()) if args.json else comp.to_text())
+    return 0
+
+
+def _rank_report(args: argparse.Namespace, res):
+    from sweep import report
+
+    return report.rank(res, args.metric, where=args.where, control=args.control, posthoc=args.posthoc,
+                       alpha=args.alpha, tie_correction=args.tie_correction, higher=args.higher)
+
+
+def cmd_rank(args: argparse.Namespace) -> int:
+    rr = _rank_report(args, _load(args))
+    _emit(args, _dumps(rr.to_dict()) if args.json else rr.to_text(limit=args.limit))
+    return 0
+
+
+def cmd_plot(args: argparse.Namespace) -> int:
+    from sweep import report
+
+    res = _load(args)
+    if args.kind == "ranks":
+        report.plot_ranks(_rank_report(args, res), args.out, limit=args.limit)
+    else:
+        report.plot_heatmap(res, args.out, args.metric, where=args.where, pivot=args.pivot)
+    if args.json:
+        sys.stdout.write(_dumps({"kind": args.kind, "out": str(args.out), "metric": args.metric}))
+    else:
+        sys.stdout.write(f"wrote {args.out}\n")
+    return 0
