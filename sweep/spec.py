@@ -129,7 +129,7 @@ def _check_keys(table: Any, allowed: tuple[str, ...], where: str, prefix: str) -
         raise SpecError(f"{where}: {prefix.rstrip('.') or 'the spec'} must be a table")
     for key in table:
         if key not in allowed:
-            raise SpecError(f"{where}: unknown key {prefix}{key!r}{nearest(key, allowed)}; "
+            raise SpecError(f"{where}: unknown key {prefix + str(key)!r}{nearest(key, allowed)}; "
                             f"allowed: {', '.join(allowed)}")
 
 
