@@ -279,18 +279,19 @@ def best(
         out[col] = out[col].astype(object).where(out[col].notna(), None)
     confs = configurations(res)
     out["worker"] = confs["worker"].reindex(out["config_id"]).to_numpy() if "worker" in confs else None
-    out["params"] = [_params_of(confs, c, res.params) for c in out["config_id"]]
+    out["params"] = _params_of(confs, out["config_id"], res.params)
     out["metric"] = metric
     out = out.reset_index().rename(columns={"index": "dataset"})
     cols = ["dataset", "config_id", "worker", "params", "mean", "sd", "folds", "planned", "complete", "runner_up", "margin", "metric"]
     return out[cols]
 
 
-def _params_of(confs: pd.DataFrame, config_id: Any, params: list[str]) -> dict[str, Any] | None:
-    if not isinstance(config_id, str):
-        return None
-    row = confs.loc[config_id, params] if params else pd.Series(dtype=object)
-    return {k: _plain(v) for k, v in row.items() if _plain(v) is not None}
+def _params_of(confs: pd.DataFrame, ids: pd.Series, params: list[str]) -> list[dict[str, Any] | None]:
+    """Each configuration's parameters as a dict, leaving out those it lacks (NaN/None)."""
+    known = [isinstance(c, str) for c in ids]
+    rows = confs.reindex([c for c, k in zip(ids, known) if k])[params].to_dict("records")
+    it = iter(rows)
+    return [{k: _plain(v) for k, v in next(it).items() if _plain(v) is not None} if k else None for k in known]
 
 
 def _plain(value: Any) -> Any:
@@ -392,8 +393,9 @@ def table(
         return json.dumps(_table_json(metric, up, pivot, *parts), indent=2) + "\n"
     best_mask = _best_mask(means, up)
     fmt_cell = _cell_formatter(fmt, decimals)
-    body = [[fmt_cell(means.iat[i, j], sds.iat[i, j] if sd else None, best_mask[i, j], incomplete.iat[i, j])
-             for j in range(means.shape[1])] for i in range(means.shape[0])]
+    m, v, part = means.to_numpy(dtype=float), sds.to_numpy(dtype=float), incomplete.to_numpy(dtype=bool)
+    body = [[fmt_cell(m[i, j], v[i, j] if sd else None, best_mask[i, j], part[i, j])
+             for j in range(m.shape[1])] for i in range(m.shape[0])]
     avg_best = _best_mask(avg.to_frame().T, up)[0]
     rank_best = _best_mask(avg_rank.to_frame().T, False)[0]
     footer = [
