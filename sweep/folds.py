@@ -1,7 +1,7 @@
 """Stratified, seeded fold assignments: computed once per dataset and scheme, then stored.
 
-scikit-learn's ``RepeatedStratifiedKFold`` is the splitter (and the
-reference the tests compare against). Every configuration of a sweep sees
+The assignment is scikit-learn's ``RepeatedStratifiedKFold`` (the reference
+the tests compare against), reimplemented in numpy to keep planning light. Every configuration of a sweep sees
 the same folds, so comparisons between configurations are paired.
 """
 
@@ -36,13 +36,38 @@ def check_feasible(y: np.ndarray, classes: tuple[str, ...], scheme: FoldScheme, 
 
 
 def compute_folds(y: np.ndarray, scheme: FoldScheme) -> list[Fold]:
-    """The folds of ``scheme`` over class labels ``y``, repeat by repeat."""
-    from sklearn.model_selection import RepeatedStratifiedKFold
+    """The folds of ``scheme`` over class labels ``y``, repeat by repeat.
 
-    splitter = RepeatedStratifiedKFold(n_splits=scheme.k, n_repeats=scheme.repeats, random_state=scheme.seed)
+    The same assignment as scikit-learn's ``RepeatedStratifiedKFold(n_splits=k,
+    n_repeats=repeats, random_state=seed)`` (the tests check it fold for fold),
+    computed here with numpy alone so that planning does not import scikit-learn.
+    """
+    y = np.asarray(y)
     classes = np.unique(y)
+    rng = np.random.RandomState(scheme.seed)
     folds = []
-    for i, (train, test) in enumerate(splitter.split(np.zeros((len(y), 1)), y)):
-        missing = tuple(int(c) for c in np.setdiff1d(classes, np.unique(y[train])))
-        folds.append(Fold(i // scheme.k, i % scheme.k, np.sort(test).astype(np.int32), missing))
+    for repeat in range(scheme.repeats):
+        assignment = _test_folds(y, scheme.k, rng)
+        for fold in range(scheme.k):
+            test = np.flatnonzero(assignment == fold)
+            train_classes = np.unique(y[assignment != fold])
+            missing = tuple(int(c) for c in np.setdiff1d(classes, train_classes))
+            folds.append(Fold(repeat, fold, test.astype(np.int32), missing))
     return folds
+
+
+def _test_folds(y: np.ndarray, k: int, rng: np.random.RandomState) -> np.ndarray:
+    # scikit-learn's stratified allocation: classes coded by order of first appearance, per-fold
+    # counts by dealing the sorted labels round robin, each class's fold labels shuffled.
+    _, first, inverse = np.unique(y, return_index=True, return_inverse=True)
+    _, by_appearance = np.unique(first, return_inverse=True)
+    coded = by_appearance[inverse]
+    n_classes = len(first)
+    dealt = np.sort(coded)
+    allocation = np.asarray([np.bincount(dealt[i::k], minlength=n_classes) for i in range(k)])
+    assignment = np.empty(len(y), dtype=np.int64)
+    for c in range(n_classes):
+        labels = np.arange(k).repeat(allocation[:, c])
+        rng.shuffle(labels)
+        assignment[coded == c] = labels
+    return assignment

@@ -376,25 +376,25 @@ class Store:
         time to the reason. A result for a job this owner no longer holds
         (its lease was taken over) is dropped, so no result is ever duplicated.
         """
-        written = 0
         with self.engine.begin() as conn:
             held = self._held(conn, owner, [r.key for r in results] + list(give_up or ()))
             ok = [r for r in results if r.ok and r.key in held]
             if ok:
                 conn.execute(sa.insert(results_table), [_result_row(r) for r in ok])
-            for r in results:
-                if r.key not in held:
-                    continue
-                conn.execute(sa.update(jobs_table).where(jobs_table.c.key == r.key).values(
-                    state="done" if r.ok else "failed", owner=None, lease_expires=None,
-                    finished_at=r.finished_at, started_at=r.started_at, error=r.error, timed_out=r.timed_out))
-                written += 1
-            for key, reason in (give_up or {}).items():
-                if key in held:
-                    conn.execute(sa.update(jobs_table).where(jobs_table.c.key == key).values(
-                        state="failed", owner=None, lease_expires=None, finished_at=time.time(), error=reason))
-                    written += 1
-        return written
+            now = time.time()
+            updates = [dict(k=r.key, b_state="done" if r.ok else "failed", b_finished=r.finished_at,
+                            b_started=r.started_at, b_error=r.error, b_timed_out=r.timed_out)
+                       for r in results if r.key in held]
+            updates += [dict(k=key, b_state="failed", b_finished=now, b_started=None, b_error=reason,
+                             b_timed_out=False) for key, reason in (give_up or {}).items() if key in held]
+            if updates:
+                j = jobs_table.c
+                conn.execute(sa.update(jobs_table).where(j.key == sa.bindparam("k")).values(
+                    state=sa.bindparam("b_state"), owner=None, lease_expires=None,
+                    finished_at=sa.bindparam("b_finished"),
+                    started_at=sa.func.coalesce(sa.bindparam("b_started", type_=sa.Float), j.started_at),
+                    error=sa.bindparam("b_error"), timed_out=sa.bindparam("b_timed_out")), updates)
+        return len(updates)
 
     def _held(self, conn: sa.Connection, owner: str, keys: list[str]) -> set[str]:
         held: set[str] = set()
@@ -493,3 +493,16 @@ def _where(url: str) -> str:
 
 def _one_line(exc: BaseException) -> str:
     return " ".join(str(getattr(exc, "orig", None) or exc).split())[:300]
+
+
+def schema_sql() -> str:
+    """The tables as SQLite DDL: what ``results_schema/schema.sql`` holds (a test keeps them equal)."""
+    from sqlalchemy.dialects import sqlite
+    from sqlalchemy.schema import CreateIndex, CreateTable
+
+    parts = [f"-- foldsweep tracker, schema version {SCHEMA_VERSION} (generated from sweep/store.py)\n"]
+    for table in metadata.sorted_tables:
+        parts.append(str(CreateTable(table).compile(dialect=sqlite.dialect())).strip() + ";\n")
+        for index in sorted(table.indexes, key=lambda i: i.name or ""):
+            parts.append(str(CreateIndex(index).compile(dialect=sqlite.dialect())).strip() + ";\n")
+    return "\n".join(parts)

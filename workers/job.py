@@ -119,7 +119,7 @@ def run_job(job: Job, data: Any) -> JobResult:
 
 
 def _fit_and_score(worker: Any, job: Job, data: Any) -> dict[str, Any]:
-    from sklearn.metrics import accuracy_score, balanced_accuracy_score, cohen_kappa_score
+    from workers.metrics import accuracy, balanced_accuracy, kappa
 
     test = np.zeros(len(data.y), dtype=bool)
     test[job.test_index] = True
@@ -135,23 +135,15 @@ def _fit_and_score(worker: Any, job: Job, data: Any) -> dict[str, Any]:
     train_predicted = estimator.predict(X_train)
     extra = worker.report(estimator, X_test) if worker.report is not None else {}
     return dict(
-        accuracy=float(accuracy_score(y_test, predicted)),
-        balanced_accuracy=float(balanced_accuracy_score(y_test, predicted)),
-        kappa=_kappa(cohen_kappa_score, y_test, predicted),
-        train_accuracy=float(accuracy_score(y_train, train_predicted)),
+        accuracy=accuracy(y_test, predicted),
+        balanced_accuracy=balanced_accuracy(y_test, predicted),
+        kappa=kappa(y_test, predicted),
+        train_accuracy=accuracy(y_train, train_predicted),
         fit_seconds=fit_seconds,
         predict_seconds=predict_seconds,
         figures={k: float(v) for k, v in extra.get("figures", {}).items()},
         model_text=extra.get("model_text"),
     )
-
-
-def _kappa(cohen_kappa_score: Any, y_true: np.ndarray, y_pred: np.ndarray) -> float:
-    # Cohen's kappa is undefined (0/0) when both sides hold one and the same class; the
-    # predictions then agree perfectly, so report 1.0 (common practice) rather than NaN.
-    if len(np.union1d(y_true, y_pred)) == 1:
-        return 1.0
-    return float(cohen_kappa_score(y_true, y_pred))
 
 
 class _time_limit:
