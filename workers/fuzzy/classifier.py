@@ -13,7 +13,7 @@ from workers.fuzzy.genetic import chc, penalized_fitness
 from workers.fuzzy.mining import RuleSet, mine_rules
 from workers.fuzzy.partitions import FuzzyPartition, MembershipCache, build_partition, memberships
 from workers.fuzzy.prescreen import prescreen
-from workers.fuzzy.reasoning import INTEGRALS, MEASURES, METHODS, TNORMS, class_scores, decide, matching_degrees
+from workers.fuzzy.reasoning import INTEGRALS, MEASURES, METHODS, TNORMS, decide, matching_degrees, rule_scores
 from workers.fuzzy.text import rule_base_text
 
 #: log10 of the power exponent q is 4 * gene: genes in [-0.5, 0.5) give q in [0.01, 100)
@@ -146,24 +146,22 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         nominal = self._nominal_mask(X.shape[1])
         self.default_class_ = int(np.argmax(np.bincount(y_idx, minlength=n_classes)))
         self.partition_ = build_partition(X, nominal, self.labels)
-        cache = MembershipCache(self.partition_, X)
-        M = cache(None)
+        M = memberships(self.partition_, X)
         mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
                            self.min_confidence, self.depth, self.rule_weight)
         screened = mined.take(prescreen(matching_degrees(M, mined.items), mined.classes, y_idx,
                                         self.cover_limit))
         self.n_rules_mined_ = len(mined)
         self.n_rules_screened_ = len(screened)
-        self._select_and_tune(cache, screened, y_idx, n_classes)
+        self._select_and_tune(X, screened, y_idx, n_classes)
         self.n_rules_selected_ = len(self.rules_)
         return self
 
-    def _select_and_tune(self, cache: MembershipCache, screened: RuleSet, y: np.ndarray,
-                         n_classes: int) -> None:
+    def _select_and_tune(self, X: np.ndarray, screened: RuleSet, y: np.ndarray, n_classes: int) -> None:
         n_disp = self.partition_.n_numeric_items if self.tuning else 0
         learn_q = self._uses_power() and self.power_exponent is None
         n_q = n_classes if learn_q else 0
-        fitness = _Fitness(cache, screened, y, n_classes, self, n_disp, learn_q)
+        fitness = _Fitness(self.partition_, X, screened, y, n_classes, self, n_disp, learn_q)
         if len(screened) == 0 or self.evaluations < 1:
             real, bits = np.zeros(n_disp + n_q), np.ones(len(screened), dtype=bool)
             self.fitness_, self.n_evaluations_, self.n_restarts_ = fitness(real, bits), 0, 0
@@ -254,34 +252,46 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
 
 
 class _Fitness:
-    """Fitness of a chromosome (real part, bits) on the training part, vectorised over examples."""
+    """Fitness of a chromosome (real part, bits) on the training part, vectorised over examples.
 
-    def __init__(self, cache: MembershipCache, rules: RuleSet, y: np.ndarray, n_classes: int,
-                 est: FuzzyRuleClassifier, n_disp: int, learn_q: bool) -> None:
-        self.cache, self.rules, self.y, self.n_classes = cache, rules, y, n_classes
-        self.est, self.n_disp, self.learn_q = est, n_disp, learn_q
+    Memberships are computed only for the items the prescreened rules use,
+    and reused (:class:`MembershipCache`) while the real part is unchanged.
+    """
+
+    def __init__(self, partition: FuzzyPartition, X: np.ndarray, rules: RuleSet, y: np.ndarray,
+                 n_classes: int, est: FuzzyRuleClassifier, n_disp: int, learn_q: bool) -> None:
+        used = np.unique(rules.items[rules.items != partition.pad])
+        self.cache = MembershipCache(partition, X, keep=8, items=used)
+        remap = np.full(partition.pad + 1, len(used), dtype=np.intp)
+        remap[used] = np.arange(len(used))
+        self.items, self.classes, self.weight = remap[rules.items], rules.classes, rules.weight
+        self.n_classes, self.est, self.n_disp, self.learn_q = n_classes, est, n_disp, learn_q
         self.fixed_q = est._exponents(np.zeros(0), n_classes) if est._uses_power() and not learn_q else None
-        self.zero = np.zeros(cache.partition.n_numeric_items)
+        self.zero = np.zeros(partition.n_numeric_items)
+        self.y, self.n = y, len(y)
+        #: flat index of each example's true class in its row of scores
+        self.true_slot = np.arange(self.n) * n_classes + y
 
     def __call__(self, real: np.ndarray, bits: np.ndarray) -> float:
-        n0, n_sel = len(bits), int(bits.sum())
+        n0 = len(bits)
+        sel = np.flatnonzero(bits)
         accuracy = 0.0
-        if n_sel:
+        if len(sel):
             M = self.cache(real[: self.n_disp] if self.n_disp else self.zero)
             q = exponent_from_gene(real[self.n_disp:]) if self.learn_q else self.fixed_q
-            scores = _scores(M, self.rules.take(bits), self.n_classes, self.est, q)
-            hit = (np.argmax(scores, axis=1) == self.y) & (scores.max(axis=1) > 0)
-            accuracy = hit.mean()
-        return penalized_fitness(accuracy, n0, n_sel, self.est.penalty)
+            est = self.est
+            scores = rule_scores(M, self.items[sel], self.classes[sel], self.weight[sel], self.n_classes,
+                                 est.reasoning, est.measure, q, est.tnorm)
+            # a hit: the true class has the largest value and it is positive (uncovered = miss)
+            hit = (np.argmax(scores, axis=1) == self.y) & (scores.ravel()[self.true_slot] > 0)
+            accuracy = np.count_nonzero(hit) / self.n
+        return penalized_fitness(accuracy, n0, len(sel), self.est.penalty)
 
 
 def _scores(M: np.ndarray, rules: RuleSet, n_classes: int, est: FuzzyRuleClassifier,
             q: np.ndarray | None) -> np.ndarray:
-    if len(rules) == 0:
-        return np.zeros((M.shape[1], n_classes))
-    assoc = matching_degrees(M, rules.items)
-    assoc *= rules.weight[:, None]
-    return class_scores(assoc, rules.classes, n_classes, est.reasoning, est.measure, q, est.tnorm)
+    return rule_scores(M, rules.items, rules.classes, rules.weight, n_classes, est.reasoning,
+                       est.measure, q, est.tnorm)
 
 
 def _generator(random_state: Any) -> np.random.Generator:

@@ -133,8 +133,8 @@ def _offspring(real, bits, threshold, rng):
         return real[:0], bits[:0]
     r1, r2 = pcblx(real[a], real[b], rng)
     b1, b2 = hux(bits[a], bits[b], rng)
-    kids_real = np.stack([r1, r2], axis=1).reshape(-1, real.shape[1])
-    kids_bits = np.stack([b1, b2], axis=1).reshape(-1, bits.shape[1])
+    kids_real = np.stack([r1, r2], axis=1).reshape(2 * len(a), real.shape[1])
+    kids_bits = np.stack([b1, b2], axis=1).reshape(2 * len(a), bits.shape[1])
     return kids_real, kids_bits
 
 

@@ -132,28 +132,42 @@ class MembershipCache:
     X : ndarray of shape (n_examples, n_features)
     keep : int, default=8
         How many recent displacement vectors to remember.
+    items : ndarray of int, optional
+        Compute only these items' rows (increasing), e.g. those a rule base
+        uses; row ``k`` of the matrix is then item ``items[k]``.
     """
 
-    def __init__(self, partition: FuzzyPartition, X: np.ndarray, keep: int = 8) -> None:
+    def __init__(self, partition: FuzzyPartition, X: np.ndarray, keep: int = 8,
+                 items: np.ndarray | None = None) -> None:
         self.partition = partition
         p = partition
-        num = p.item_var[: p.n_numeric_items]
+        #: the items (rows) computed, in this order, then the padding row
+        self.items = np.arange(p.n_items) if items is None else np.asarray(items, dtype=np.intp)
+        num = self.items[self.items < p.n_numeric_items]
+        self._num_items = num
+        self._n_num = len(num)
         Xc = np.clip(X[:, p.numeric], p.lo, p.hi) if len(p.numeric) else X[:, :0]
-        pos = np.searchsorted(p.numeric, num)
-        centre = p.lo[pos] + p.item_label[: p.n_numeric_items] * p.step[pos]
-        #: (n_numeric_items, n_examples): (x - base centre) / step
+        pos = np.searchsorted(p.numeric, p.item_var[num])
+        centre = p.lo[pos] + p.item_label[num] * p.step[pos]
+        #: (n_numeric rows, n_examples): (x - base centre) / step
         self._z = (Xc[:, pos].T - centre[:, None]) / p.step[pos][:, None]
-        crisp_var = p.item_var[p.n_numeric_items:]
-        crisp = X[:, crisp_var].T == p.item_label[p.n_numeric_items:][:, None]
-        self._matrix = np.ones((p.n_items + 1, X.shape[0]))
-        self._matrix[p.n_numeric_items: p.n_items] = crisp
+        crisp_items = self.items[self.items >= p.n_numeric_items]
+        crisp = X[:, p.item_var[crisp_items]].T == p.item_label[crisp_items][:, None]
+        self._matrix = np.ones((len(self.items) + 1, X.shape[0]))
+        self._matrix[self._n_num: len(self.items)] = crisp
+        if not np.all(np.diff(self.items) > 0):
+            raise ValueError("MembershipCache: items must be strictly increasing")
         self._keep = keep
         self._recent: dict[bytes, np.ndarray] = {}
         self.hits = 0
         self.misses = 0
 
     def __call__(self, displacement: np.ndarray | None = None) -> np.ndarray:
-        """The ``(n_items + 1, n_examples)`` membership matrix (do not modify it)."""
+        """The ``(len(items) + 1, n_examples)`` membership matrix (do not modify it).
+
+        ``displacement`` has one entry per numeric item of the partition (all
+        of them, whichever rows this cache computes).
+        """
         if displacement is None:
             displacement = np.zeros(self.partition.n_numeric_items)
         key = displacement.tobytes()
@@ -163,8 +177,8 @@ class MembershipCache:
             return found
         self.misses += 1
         out = self._matrix.copy()
-        head = out[: self.partition.n_numeric_items]
-        np.subtract(self._z, displacement[:, None], out=head)
+        head = out[: self._n_num]
+        np.subtract(self._z, displacement[self._num_items][:, None], out=head)
         np.abs(head, out=head)
         np.subtract(1.0, head, out=head)
         np.maximum(head, 0.0, out=head)

@@ -42,18 +42,31 @@ def matching_degrees(M: np.ndarray, items: np.ndarray) -> np.ndarray:
     ``M`` is the ``(n_items + 1, n_examples)`` membership matrix whose last
     row (ones) pads rules with fewer antecedents; ``items`` is ``(n_rules, depth)``.
     """
-    n_rules, depth = items.shape
     out = np.take(M, items[:, 0], axis=0)
-    if depth > 1:
-        buf = np.empty_like(out)
-        pad = M.shape[0] - 1
-        for k in range(1, depth):
-            col = items[:, k]
-            if (col == pad).all():
-                continue
-            np.take(M, col, axis=0, out=buf)
-            out *= buf
+    for k in range(1, items.shape[1]):
+        out *= np.take(M, items[:, k], axis=0)
     return out
+
+
+def rule_scores(M: np.ndarray, items: np.ndarray, rule_class: np.ndarray, weight: np.ndarray,
+                n_classes: int, method: str, measure: str = "power",
+                q: np.ndarray | float | None = None, tnorm: str = "product") -> np.ndarray:
+    """Class scores ``(n_examples, n_classes)`` of a rule base from the membership matrix ``M``.
+
+    The additive combination folds the rule weights into one matrix product
+    (``match.T @ W`` with ``W[r, class_r] = weight_r``); the other methods
+    form the association degrees first.
+    """
+    n = M.shape[1]
+    if len(rule_class) == 0:
+        return np.zeros((n, n_classes))
+    match = matching_degrees(M, items)
+    if method == "additive":
+        W = np.zeros((len(rule_class), n_classes))
+        W[np.arange(len(rule_class)), rule_class] = weight
+        return match.T @ W
+    match *= weight[:, None]
+    return class_scores(match, rule_class, n_classes, method, measure, q, tnorm)
 
 
 def class_scores(assoc: np.ndarray, rule_class: np.ndarray, n_classes: int, method: str,

@@ -1,0 +1,133 @@
+"""The FARC-HD estimator: scikit-learn conventions, determinism, reasoning wiring, accuracy."""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+import pytest
+from sklearn.base import clone
+from sklearn.datasets import load_breast_cancer, load_iris, load_wine
+from sklearn.exceptions import NotFittedError
+from sklearn.model_selection import StratifiedKFold, cross_val_score
+from sklearn.tree import DecisionTreeClassifier
+from sklearn.utils.validation import check_is_fitted
+
+from workers.fuzzy import FuzzyRuleClassifier
+
+FAST = dict(evaluations=400, population=20, random_state=0)
+
+
+@pytest.fixture(scope="module")
+def iris():
+    return load_iris(return_X_y=True)
+
+
+@pytest.fixture(scope="module")
+def wine():
+    return load_wine(return_X_y=True)
+
+
+def test_clone_keeps_parameters_and_drops_fit(iris):
+    # sklearn's clone contract: same constructor parameters, no fitted state (scikit-learn developer guide)
+    est = FuzzyRuleClassifier(labels=3, reasoning="winning_rule", **FAST).fit(*iris)
+    twin = clone(est)
+    assert twin.get_params() == est.get_params()
+    with pytest.raises(NotFittedError):
+        check_is_fitted(twin)
+    check_is_fitted(est)
+
+
+def test_set_params_round_trip():
+    est = FuzzyRuleClassifier().set_params(depth=2, measure="cardinality")
+    assert est.get_params()["depth"] == 2 and est.measure == "cardinality"
+
+
+def test_usable_in_cross_val_score(iris):
+    # scikit-learn's own cross-validation drives fit/score (reference implementation)
+    scores = cross_val_score(FuzzyRuleClassifier(**FAST), *iris, cv=StratifiedKFold(3, shuffle=True, random_state=0))
+    assert scores.shape == (3,) and scores.min() > 0.8
+
+
+def test_deterministic_for_given_random_state(wine):
+    X, y = wine
+    a = FuzzyRuleClassifier(**FAST).fit(X, y)
+    b = FuzzyRuleClassifier(**FAST).fit(X, y)
+    assert a.rule_text() == b.rule_text()
+    np.testing.assert_array_equal(a.predict_proba(X), b.predict_proba(X))
+    c = FuzzyRuleClassifier(**{**FAST, "random_state": 1}).fit(X, y)
+    assert c.fitness_ != a.fitness_ or c.rule_text() != a.rule_text()
+
+
+def test_string_labels_and_probabilities(iris):
+    X, y = iris
+    names = np.array(["setosa", "versicolor", "virginica"])[y]
+    est = FuzzyRuleClassifier(**FAST).fit(X, names)
+    pred = est.predict(X)
+    assert set(pred) <= set(names) and est.score(X, names) > 0.85
+    proba = est.predict_proba(X)
+    np.testing.assert_allclose(proba.sum(axis=1), 1.0)
+    np.testing.assert_array_equal(est.classes_[proba.argmax(axis=1)], pred)
+
+
+def test_stage_counts_shrink(wine):
+    est = FuzzyRuleClassifier(**FAST).fit(*wine)
+    assert est.n_rules_mined_ >= est.n_rules_screened_ >= est.n_rules_selected_ > 0
+    assert est.n_evaluations_ == FAST["evaluations"]
+
+
+def test_uncovered_example_gets_majority_class():
+    # labels low/medium/high over [0, 2]; the medium examples are mixed (confidence 4/6 < 0.8), so no rule
+    # has "medium" and x = 1 (membership 1 in medium only) is covered by no rule (hand calculation)
+    X = np.r_[np.zeros(5), np.full(5, 2.0), np.ones(6)][:, None]
+    y = np.r_[np.zeros(5, int), np.ones(5, int), [0, 0, 1, 1, 1, 1]]
+    est = FuzzyRuleClassifier(labels=3, depth=1, evaluations=0, tuning=False).fit(X, y)
+    probe = np.array([[1.0], [0.0], [2.0]])
+    np.testing.assert_array_equal(est.uncovered(probe), [True, False, False])
+    # class 1 holds 9 of 16 training examples: the majority
+    np.testing.assert_array_equal(est.predict(probe), [1, 0, 1])
+
+
+def test_rule_text_names_labels_classes_and_categories():
+    rng = np.random.default_rng(0)
+    colour = rng.integers(0, 3, 120).astype(float)
+    size = rng.random(120)
+    X = np.c_[size, colour]
+    y = (colour == 2).astype(int)
+    est = FuzzyRuleClassifier(nominal_features=[False, True], feature_names=["size", "colour"],
+                              class_names=["plain", "blue_ones"],
+                              category_names=[None, ["red", "green", "blue"]], **FAST).fit(X, y)
+    text = est.rule_text()
+    rule = re.compile(r"^IF \w+ IS \w+( AND \w+ IS \w+)* THEN \w+ \(weight [01]\.\d\d\)$")
+    rules = [line for line in text.splitlines() if not line.startswith("#")]
+    assert rules and all(rule.match(line) for line in rules)
+    assert "colour IS blue" in text and "blue_ones" in text
+    assert est.score(X, y) == 1.0
+
+
+def test_bad_parameter_names_allowed_values(iris):
+    with pytest.raises(ValueError, match="reasoning must be one of"):
+        FuzzyRuleClassifier(reasoning="average").fit(*iris)
+    with pytest.raises(ValueError, match=r"power_exponent must be None or a number in \(0, 100\]"):
+        FuzzyRuleClassifier(power_exponent=0.0).fit(*iris)
+
+
+def test_tuning_moves_labels_and_off_keeps_them(iris):
+    tuned = FuzzyRuleClassifier(**FAST).fit(*iris)
+    fixed = FuzzyRuleClassifier(tuning=False, **FAST).fit(*iris)
+    assert np.any(tuned.displacement_ != 0)
+    assert np.all(fixed.displacement_ == 0)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("loader", [load_iris, load_wine, load_breast_cancer])
+def test_accuracy_against_decision_tree(loader):
+    # the issue's acceptance check on scikit-learn's shipped UCI datasets, one common stratified 5-fold split.
+    # Budget reduced to 3000 evaluations (default 15000) to keep the suite fast; the default-budget table
+    # is in the benchmark note and is higher on each dataset.
+    X, y = loader(return_X_y=True)
+    cv = StratifiedKFold(5, shuffle=True, random_state=0)
+    fuzzy = cross_val_score(FuzzyRuleClassifier(random_state=0, evaluations=3000), X, y, cv=cv).mean()
+    tree = cross_val_score(DecisionTreeClassifier(random_state=0), X, y, cv=cv).mean()
+    assert fuzzy >= tree - 0.02
+    assert fuzzy >= 0.90

@@ -1,0 +1,73 @@
+"""The ``fuzzy_rules`` worker: declared parameters, build from a dataset, report."""
+
+from __future__ import annotations
+
+import inspect
+
+import numpy as np
+import pytest
+
+from sweep.datasets import Dataset
+from workers.fuzzy import FuzzyRuleClassifier
+from workers.fuzzy.worker import FUZZY_RULES
+from workers.registry import get_worker
+
+DATA_ONLY = {"nominal_features", "feature_names", "class_names", "category_names"}
+
+
+def _dataset() -> Dataset:
+    rng = np.random.default_rng(3)
+    width = rng.random(90) * 3
+    colour = rng.integers(0, 3, 90)
+    y = np.where(colour == 1, 0, np.where(width > 1.5, 1, 2))
+    return Dataset.from_arrays("toy", np.c_[width, colour], y, feature_names=["petal_width", "colour"],
+                               classes=["green", "large", "small"], nominal=[False, True],
+                               categories=[None, ["blue", "green", "red"]])
+
+
+def test_registered_under_its_name():
+    assert get_worker("fuzzy_rules") is FUZZY_RULES
+    assert FUZZY_RULES.name == "fuzzy_rules" and FUZZY_RULES.version
+
+
+def test_every_estimator_parameter_declared_with_its_default():
+    signature = inspect.signature(FuzzyRuleClassifier.__init__).parameters
+    declared = set(FUZZY_RULES.params)
+    assert declared == set(signature) - {"self"} - DATA_ONLY
+    for name, param in FUZZY_RULES.params.items():
+        assert param.check(param.default) == param.default
+        if name != "random_state":  # the worker fixes a seed so that every job is reproducible
+            assert param.default == signature[name].default, name
+    assert FUZZY_RULES.params["random_state"].default == 0
+
+
+def test_declared_ranges_and_choices():
+    p = FUZZY_RULES.params
+    assert p["power_exponent"].check("none") is None
+    assert p["power_exponent"].check(100) == 100.0
+    for bad in (0, 101):
+        with pytest.raises(ValueError):
+            p["power_exponent"].check(bad)
+    assert p["tnorm"].choices == ("product", "minimum", "lukasiewicz", "hamacher")
+    assert set(p["reasoning"].choices) == {"winning_rule", "additive", "choquet", "sugeno_integral", "choquet_t"}
+    with pytest.raises(ValueError):
+        p["labels"].check(1)
+
+
+def test_build_fit_and_report():
+    data = _dataset()
+    params = {name: param.default for name, param in FUZZY_RULES.params.items()}
+    params.update(evaluations=300, population=20)
+    est = FUZZY_RULES.build(params, data)
+    assert isinstance(est, FuzzyRuleClassifier) and not hasattr(est, "rules_")
+    assert est.evaluations == 300 and est.random_state == 0
+    est.fit(data.X[:70], data.y[:70])
+    out = FUZZY_RULES.report(est, data.X[70:])
+    figures = out["figures"]
+    assert set(figures) == {"rules_mined", "rules_screened", "rules_selected", "mean_antecedents", "uncovered_test"}
+    assert figures["rules_mined"] >= figures["rules_screened"] >= figures["rules_selected"] >= 1
+    assert 1 <= figures["mean_antecedents"] <= params["depth"]
+    assert figures["uncovered_test"] == int(est.uncovered(data.X[70:]).sum())
+    text = out["model_text"]
+    assert "colour IS green" in text and "THEN green" in text  # names from the dataset's categories and classes
+    assert "petal_width IS" in text
