@@ -94,10 +94,20 @@ class SweepResults:
 
 
 def higher_is_better(metric: str) -> bool:
-    """Direction of a metric: accuracy-like higher, errors, times and rule counts lower."""
+    """Direction of a metric: higher for accuracy-like scores, lower for everything else.
+
+    Higher: :data:`HIGHER_IS_BETTER` and names containing accuracy, kappa,
+    auc, f1, precision or recall. Lower: errors, times (``*_seconds``) and
+    the model size figures workers report (``rules_*``, depth, leaves, ...).
+    """
     if metric in HIGHER_IS_BETTER:
         return True
-    return not (metric in LOWER_IS_BETTER or metric.startswith("rules_") or metric.endswith("_seconds"))
+    if metric in LOWER_IS_BETTER or metric.startswith("rules_") or metric.endswith("_seconds"):
+        return False
+    return any(word in metric for word in _HIGHER_WORDS)
+
+
+_HIGHER_WORDS = ("accuracy", "kappa", "auc", "f1", "precision", "recall")
 
 
 def _check_metric(res: SweepResults, metric: str) -> None:
@@ -291,7 +301,15 @@ def _params_of(confs: pd.DataFrame, ids: pd.Series, params: list[str]) -> list[d
     known = [isinstance(c, str) for c in ids]
     rows = confs.reindex([c for c, k in zip(ids, known) if k])[params].to_dict("records")
     it = iter(rows)
-    return [{k: _plain(v) for k, v in next(it).items() if _plain(v) is not None} if k else None for k in known]
+    return [{k: _param_value(v) for k, v in next(it).items() if _plain(v) is not None} if k else None for k in known]
+
+
+def _param_value(value: Any) -> Any:
+    """A parameter value as the spec wrote it: integral floats (an int column with NaN) back to int."""
+    value = _plain(value)
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
 
 
 def _plain(value: Any) -> Any:
@@ -340,7 +358,7 @@ def _pivot_labels(res: SweepResults, ids, pivot: str) -> pd.Series:
         hint = f" (did you mean {near[0]!r}?)" if near else ""
         raise SelectionError(f"{res.source}: pivot {pivot!r} is not a parameter{hint}; allowed: {', '.join(res.params)}")
     confs = configurations(res).loc[list(ids)]
-    labels = confs[pivot].map(lambda v: "none" if _plain(v) is None else str(_plain(v)))
+    labels = confs[pivot].map(lambda v: "none" if _plain(v) is None else str(_param_value(v)))
     if labels.duplicated().any():
         others = [p for p in res.params if p != pivot and confs[p].astype(str).nunique() > 1]
         raise SelectionError(

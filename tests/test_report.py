@@ -214,7 +214,7 @@ def test_table_pivot_needs_other_parameters_fixed(sweep_results):
     with pytest.raises(SelectionError, match="still varying"):
         report.table(sweep_results, pivot="max_depth")
     text = report.table(sweep_results, fmt="csv", pivot="n_neighbors", where="worker=knn")
-    assert text.splitlines()[0] == "dataset,1.0,7.0"
+    assert text.splitlines()[0] == "dataset,1,7"
 
 
 def _latex_table(res):
@@ -385,3 +385,81 @@ def test_cli_bad_selection_is_exit_2(sweep_results, monkeypatch, capsys):
     assert main(["compare", "sweeps/test.toml", "tfull", "worker=tree"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "sweeps/test.toml" in err[0] and "matches 3 configurations" in err[0]
+
+
+@pytest.mark.parametrize(
+    "metric, up",
+    # Directions (issue 5; common practice): accuracy-like scores higher, errors, times, rule counts lower.
+    [("accuracy", True), ("balanced_accuracy", True), ("kappa", True), ("train_accuracy", True),
+     ("fit_seconds", False), ("predict_seconds", False), ("rules_selected", False), ("error", False),
+     ("leaves", False)],
+)
+def test_metric_direction(metric, up):
+    assert report.higher_is_better(metric) is up
+
+
+# ------------------------------------------------------------ end to end
+
+E2E_SPEC = """
+name = "report-e2e"
+[folds]
+k = 3
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[dataset]]
+name = "wine"
+builtin = "wine"
+[[dataset]]
+name = "breast_cancer"
+builtin = "breast_cancer"
+[[model]]
+worker = "decision_tree"
+grid = { max_depth = [1, 3] }
+[[model]]
+worker = "knn"
+grid = { n_neighbors = [1, 7] }
+"""
+
+
+@pytest.mark.slow
+def test_end_to_end_reports_on_a_real_sweep(tmp_path):
+    from tests.conftest import run_foldsweep
+
+    spec = tmp_path / "e2e.toml"
+    spec.write_text(E2E_SPEC)
+    ran = run_foldsweep("run", spec, "--workers", "1", "--progress", "none", timeout=300)
+    assert ran.returncode == 0, ran.stderr
+    dump = run_foldsweep("results", spec, "--format", "csv")
+    assert dump.returncode == 0, dump.stderr
+    from io import StringIO
+
+    jobs = pd.read_csv(StringIO(dump.stdout))
+    # independent computation: pandas groupby of the job rows the store exported.
+    means = jobs.groupby(["dataset", "config_id"])["accuracy"].mean().unstack()
+
+    table = run_foldsweep("table", spec, "--format", "csv")
+    assert table.returncode == 0, table.stderr
+    out = pd.read_csv(StringIO(table.stdout), index_col=0)
+    np.testing.assert_allclose(out.loc[means.index, means.columns].to_numpy(), means.to_numpy(), rtol=1e-9)
+
+    best = run_foldsweep("best", spec, "--json")
+    rows = {r["dataset"]: r for r in json.loads(best.stdout)}
+    for ds in means.index:
+        assert rows[ds]["mean"] == pytest.approx(means.loc[ds].max()) and rows[ds]["folds"] == 3
+
+    latex = run_foldsweep("table", spec, "--format", "latex", "--out", tmp_path / "t.tex")
+    assert latex.returncode == 0 and "\\begin{tabular}" in (tmp_path / "t.tex").read_text()
+    compare = run_foldsweep("compare", spec, "worker=knn,n_neighbors=7", "max_depth=3", "--json")
+    assert compare.returncode == 0, compare.stderr
+    assert json.loads(compare.stdout)["n"] == 3
+    rank = run_foldsweep("rank", spec, "--json")
+    assert rank.returncode == 0 and json.loads(rank.stdout)["k"] == 4
+    png = tmp_path / "ranks.png"
+    plot = run_foldsweep("plot", spec, "--kind", "ranks", "--out", png)
+    assert plot.returncode == 0, plot.stderr
+    import matplotlib.image
+
+    assert png.stat().st_size > 0 and matplotlib.image.imread(png).ndim == 3
+    bad = run_foldsweep("compare", spec, "worker=knn", "max_depth=3")
+    assert bad.returncode == 2 and len(bad.stderr.strip().splitlines()) == 1 and "Traceback" not in bad.stderr
