@@ -7,7 +7,7 @@ so that one bad configuration does not stop a sweep.
 
 from __future__ import annotations
 
-import signal
+import ctypes
 import socket
 import threading
 import time
@@ -91,8 +91,9 @@ def resolve_data(data: Any) -> Any:
     return _cache[data.fingerprint]
 
 
-class JobTimeout(Exception):
-    """Raised inside a job that exceeded its time limit."""
+class JobTimeout(BaseException):
+    """Raised inside a job that exceeded its time limit (a BaseException, so that no `except Exception` in a
+    worker swallows it)."""
 
 
 def run_job(job: Job, data: Any) -> JobResult:
@@ -147,26 +148,37 @@ def _fit_and_score(worker: Any, job: Job, data: Any) -> dict[str, Any]:
 
 
 class _time_limit:
-    """SIGALRM-based limit; only where signals can be used (the main thread of a process)."""
+    """Raise :class:`JobTimeout` in the job's own thread once ``seconds`` have passed.
+
+    A timer thread delivers the exception with ``PyThreadState_SetAsyncExc``, so
+    the limit works wherever the job runs: a process's main thread (joblib, in
+    process) or a worker thread (dask). Like any Python-level interruption it
+    lands between bytecodes, i.e. after the numpy call in progress returns.
+    """
 
     def __init__(self, seconds: float | None) -> None:
         self.seconds = seconds
-        self.armed = False
+        self.lock = threading.Lock()
+        self.active = False
+        self.timer: threading.Timer | None = None
 
     def __enter__(self) -> None:
-        if not self.seconds or threading.current_thread() is not threading.main_thread() \
-                or not hasattr(signal, "setitimer"):
+        if not self.seconds:
             return
-        self.previous = signal.signal(signal.SIGALRM, _raise_timeout)
-        signal.setitimer(signal.ITIMER_REAL, self.seconds)
-        self.armed = True
+        self.thread_id = threading.get_ident()
+        self.active = True
+        self.timer = threading.Timer(self.seconds, self._expire)
+        self.timer.daemon = True
+        self.timer.start()
+
+    def _expire(self) -> None:
+        with self.lock:
+            if self.active:
+                ctypes.pythonapi.PyThreadState_SetAsyncExc(ctypes.c_ulong(self.thread_id),
+                                                           ctypes.py_object(JobTimeout))
 
     def __exit__(self, *exc: object) -> None:
-        if self.armed:
-            signal.setitimer(signal.ITIMER_REAL, 0)
-            signal.signal(signal.SIGALRM, self.previous)
-
-
-def _raise_timeout(signum: int, frame: object) -> None:
-    raise JobTimeout()
-
+        if self.timer is not None:
+            with self.lock:
+                self.active = False
+            self.timer.cancel()
