@@ -185,7 +185,7 @@ class _Loop:
         self.owner = owner_id()
         workers = options.workers or os.cpu_count() or 1
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
-                                      **options.executor_options)
+                                      memory_limit=self.spec.memory_limit, **options.executor_options)
         self.window = options.claim or 4 * self.executor.workers
         self.configs = inputs.plan.by_config
         self.folds: dict[str, dict[tuple[int, int], Any]] = {}

@@ -6,6 +6,7 @@
     store = "demo.sqlite"             # optional: a path beside the spec, or any SQLAlchemy URL
     time_limit = 600                  # optional: seconds per fold job
     max_attempts = 3                  # optional: tries for a job whose worker process died
+    memory_limit = "4GiB"             # optional: per dask worker (default: the machine's memory split evenly)
 
     [folds]                           # stratified k-fold, repeated, seeded
     k = 5
@@ -39,7 +40,8 @@ from typing import Any, Mapping
 
 from sweep.errors import SpecError
 
-TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "folds", "dataset", "model")
+TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "memory_limit", "folds", "dataset",
+            "model")
 FOLD_KEYS = ("k", "repeats", "seed")
 MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies")
 
@@ -82,6 +84,8 @@ class Spec:
     models: tuple[ModelBlock, ...]
     time_limit: float | None
     max_attempts: int
+    #: per-worker memory limit for the dask backend ("4GiB"), None for the machine's share
+    memory_limit: str | None
     #: sha256 of the file's bytes (recorded with the sweep)
     digest: str
 
@@ -114,6 +118,7 @@ def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:
         models=_models(doc.get("model"), where),
         time_limit=_time_limit(doc.get("time_limit"), where),
         max_attempts=_int_at_least(doc.get("max_attempts", 3), 1, where, "max_attempts"),
+        memory_limit=_memory_limit(doc.get("memory_limit"), where),
         digest=digest,
     )
 
@@ -161,6 +166,16 @@ def _time_limit(value: Any, where: str) -> float | None:
     if isinstance(value, bool) or not isinstance(value, (int, float)) or value <= 0:
         raise SpecError(f"{where}: time_limit must be a number of seconds > 0, got {value!r}")
     return float(value)
+
+
+def _memory_limit(value: Any, where: str) -> str | None:
+    import re
+
+    if value is None:
+        return None
+    if not isinstance(value, str) or not re.fullmatch(r"\s*\d+(\.\d+)?\s*(B|kB|KiB|MB|MiB|GB|GiB|TB|TiB)\s*", value):
+        raise SpecError(f"{where}: memory_limit must be a size such as \"4GiB\" or \"1500MB\", got {value!r}")
+    return value.replace(" ", "")
 
 
 def _folds(table: Any, where: str) -> FoldScheme:
