@@ -267,10 +267,10 @@ def test_winning_rule_and_additive_by_hand():
 
 
 def test_padded_degrees_layout():
-    assoc = np.array([[0.2, 0.0], [0.5, 0.0], [0.6, 0.3], [0.0, 0.0]])
-    classes = np.array([0, 0, 1, 1])
+    assoc = np.array([[0.2, 0.0], [0.6, 0.3], [0.5, 0.0], [0.0, 0.1], [0.4, 0.0]])
+    classes = np.array([0, 1, 0, 1, 0])
     cube, counts = padded_degrees(assoc, classes, 2)
-    assert list(counts) == [2, 2]
-    # cut to the most rules of one class firing on one example (2), sorted ascending
-    np.testing.assert_allclose(cube[0], [[0.2, 0.5], [0.0, 0.6]])
-    np.testing.assert_allclose(cube[1], [[0.0, 0.0], [0.0, 0.3]])
+    assert list(counts) == [3, 2] and cube.shape == (2, 2, 3)
+    # per class, the class's rules in rule-base order, zero-padded to the longest class
+    np.testing.assert_allclose(cube[0], [[0.2, 0.5, 0.4], [0.6, 0.0, 0.0]])
+    np.testing.assert_allclose(cube[1], [[0.0, 0.0, 0.0], [0.3, 0.1, 0.0]])

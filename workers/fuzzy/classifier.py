@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from typing import Any, Sequence
 
 import numpy as np
@@ -97,6 +98,8 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         Index of the training part's majority class (the uncovered examples' prediction).
     fitness_, n_evaluations_, n_restarts_ : float, int, int
         Best fitness, evaluations used, and CHC restarts.
+    stage_seconds_ : dict
+        Wall time of ``"mining"`` (with the partitions), ``"prescreening"`` and ``"genetic"``.
 
     Notes
     -----
@@ -145,16 +148,25 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         n_classes = len(self.classes_)
         nominal = self._nominal_mask(X.shape[1])
         self.default_class_ = int(np.argmax(np.bincount(y_idx, minlength=n_classes)))
+        clock = [time.perf_counter()]
+
+        def lap() -> float:
+            clock.append(time.perf_counter())
+            return clock[-1] - clock[-2]
+
         self.partition_ = build_partition(X, nominal, self.labels)
         M = memberships(self.partition_, X)
         mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
                            self.min_confidence, self.depth, self.rule_weight)
+        t_mine = lap()
         screened = mined.take(prescreen(matching_degrees(M, mined.items), mined.classes, y_idx,
                                         self.cover_limit))
+        t_screen = lap()
         self.n_rules_mined_ = len(mined)
         self.n_rules_screened_ = len(screened)
         self._select_and_tune(X, screened, y_idx, n_classes)
         self.n_rules_selected_ = len(self.rules_)
+        self.stage_seconds_ = {"mining": t_mine, "prescreening": t_screen, "genetic": lap()}
         return self
 
     def _select_and_tune(self, X: np.ndarray, screened: RuleSet, y: np.ndarray, n_classes: int) -> None:

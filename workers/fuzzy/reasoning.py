@@ -19,8 +19,8 @@ vector with one entry per rule of that class in the rule base, the rules
 that do not fire contributing 0, so that the cardinality and power
 measures count the class's rules (``|A| / n`` with n the number of rules of
 the class), after Barrenechea et al. (2013) and Lucca et al. (2016). The
-vectors are zero-padded to the longest class and cut to the most rules
-firing on one example, the measures receiving the true ``n`` per class.
+vectors are zero-padded to the class with the most rules, the measures
+receiving the true ``n`` per class (padding zeros change no integral).
 
 The predicted class is the one with the largest value (the first such
 class on ties); an example where every class gets 0 is *uncovered*.
@@ -107,11 +107,11 @@ def class_scores(assoc: np.ndarray, rule_class: np.ndarray, n_classes: int, meth
 
 def padded_degrees(assoc: np.ndarray, rule_class: np.ndarray,
                    n_classes: int) -> tuple[np.ndarray, np.ndarray]:
-    """Association degrees as ``(n_examples, n_classes, k)``, sorted ascending along the last axis.
+    """Association degrees as ``(n_examples, n_classes, k)``, zero-padded, in rule order.
 
-    ``k`` is the largest number of rules of one class firing on one example
-    (at least 1): entries beyond it are zeros of every row and change no
-    integral. Also returns the number of rules per class.
+    ``k`` is the largest number of rules of one class (at least 1); entry
+    ``[e, c, j]`` is the degree of class c's j-th rule on example e. Not
+    sorted: the integrals sort. Also returns the number of rules per class.
     """
     n = assoc.shape[1]
     counts = np.bincount(rule_class, minlength=n_classes)
@@ -119,13 +119,9 @@ def padded_degrees(assoc: np.ndarray, rule_class: np.ndarray,
     order = np.argsort(rule_class, kind="stable")
     start = np.concatenate([[0], np.cumsum(counts)[:-1]])
     rank = np.arange(len(order)) - start[rule_class[order]]
-    slot = rule_class[order] * width + rank
     flat = np.zeros((n, n_classes * width))
-    flat[:, slot] = assoc[order].T
-    cube = flat.reshape(n, n_classes, width)
-    cube.sort(axis=-1)
-    fired = int((cube > 0).sum(axis=-1).max(initial=0))
-    return cube[..., width - max(fired, 1):], counts
+    flat[:, rule_class[order] * width + rank] = assoc[order].T
+    return flat.reshape(n, n_classes, width), counts
 
 
 def _integral(assoc, rule_class, n_classes, method, measure, q, tnorm):
@@ -136,7 +132,7 @@ def _integral(assoc, rule_class, n_classes, method, measure, q, tnorm):
     if measure in ("cardinality", "power"):
         params["n"] = np.maximum(counts, 1)
     if measure == "power":
-        params["q"] = np.broadcast_to(np.asarray(1.0 if q is None else q, dtype=float), (n_classes,))
+        params["q"] = 1.0 if q is None else q  # scalar or (n_classes,): broadcast over examples
     if method == "choquet":
         return fm.choquet(cube, measure, **params)
     if method == "sugeno_integral":
