@@ -44,6 +44,10 @@ def _parquet_bytes(frame: Any) -> bytes:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
+    table = pa.Table.from_pandas(frame, preserve_index=False)
+    # pandas >= 3 hands strings over as large_string; results.arrow.json publishes them as string
+    table = table.cast(pa.schema([f.with_type(pa.string()) if f.type == pa.large_string() else f
+                                  for f in table.schema], metadata=table.schema.metadata))
     buffer = io.BytesIO()
-    pq.write_table(pa.Table.from_pandas(frame, preserve_index=False), buffer)
+    pq.write_table(table, buffer)
     return buffer.getvalue()
