@@ -107,7 +107,7 @@ def cmd_status(args: argparse.Namespace) -> int:
         store = None  # not run yet: everything is pending
     if store is not None:
         try:
-            states = {r.key: (r.state, r.error, r.timed_out) for r in store.job_rows(inputs.spec.name)}
+            states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}
         finally:
             store.close()
         for job in inputs.plan.jobs:

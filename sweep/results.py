@@ -18,34 +18,43 @@ METRICS = ("accuracy", "balanced_accuracy", "kappa", "train_accuracy", "fit_seco
 ID_COLUMNS = ("key", "dataset", "config_id", "worker", "label", "repeat", "fold")
 
 
-def results_frame(inputs: Inputs, store: Any, *, include_unfinished: bool = False) -> tuple[Any, list[str]]:
-    """(frame of the plan's done jobs, parameter column names)."""
+def results_frame(inputs: Inputs, store: Any, *, figures: bool = True) -> tuple[Any, list[str]]:
+    """(frame of the plan's finished jobs, parameter column names).
+
+    Parameter columns keep their declared types (object dtype where
+    configurations of several workers mix), so an integer stays an integer.
+    """
     import pandas as pd
 
-    planned = {j.key for j in inputs.plan.jobs}
-    configs = inputs.plan.by_config
-    params = sorted({name for c in configs.values() for name in c.params})
-    rows = []
-    for r in store.job_rows(inputs.spec.name):
-        if r.key not in planned or (r.state != "done" and not include_unfinished):
-            continue
-        config = configs[r.config_id]
-        row: dict[str, Any] = dict(key=r.key, dataset=r.dataset, config_id=r.config_id, worker=config.worker,
-                                   label=config.label, repeat=r.repeat, fold=r.fold)
-        row.update({name: config.params.get(name) for name in params})
-        row.update({m: getattr(r, m) for m in METRICS})
-        if include_unfinished:
-            row.update(state=r.state, error=r.error)
-        row.update(json.loads(r.figures) if r.figures else {})
-        row.update(worker_version=r.worker_version, host=r.host)
-        rows.append(row)
-    columns = [*ID_COLUMNS, *params, *METRICS]
-    frame = pd.DataFrame(rows)
-    if frame.empty:
-        frame = pd.DataFrame(columns=columns)
-    extra = [c for c in frame.columns if c not in columns]
-    frame = frame[columns + extra].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
+    rows, columns = store.done_results(inputs.spec.name, figures=figures)
+    frame = pd.DataFrame.from_records(rows, columns=columns)
+    frame = frame[frame["key"].isin(pd.Index([j.key for j in inputs.plan.jobs]))]
+    configs = inputs.plan.configurations
+    params = sorted({name for c in configs for name in c.params})
+    table = pd.DataFrame({"config_id": [c.config_id for c in configs], "worker": [c.worker for c in configs],
+                          "label": [c.label for c in configs],
+                          **{name: pd.Series([c.params.get(name) for c in configs], dtype=object)
+                             for name in params}})
+    frame = frame.merge(table, on="config_id", how="left")
+    extra: list[str] = []
+    if figures:
+        frame, extra = _expand_figures(frame)
+    ordered = [*ID_COLUMNS, *params, *METRICS, *extra, "worker_version", "host"]
+    frame = frame[ordered].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
     return frame.reset_index(drop=True), params
+
+
+def _expand_figures(frame: Any) -> tuple[Any, list[str]]:
+    """Turn the JSON ``figures`` column into one column per figure (parsing each distinct text once)."""
+    import pandas as pd
+
+    codes, texts = pd.factorize(frame.pop("figures"))
+    parsed = pd.DataFrame([json.loads(t) if t else {} for t in texts])
+    if parsed.empty or not len(parsed.columns):
+        return frame, []
+    names = sorted(parsed.columns)
+    expanded = parsed[names].take(codes).reset_index(drop=True)
+    return pd.concat([frame.reset_index(drop=True), expanded], axis=1), names
 
 
 def load_sweep_results(spec_path: str | Path) -> Any:

@@ -406,16 +406,25 @@ class Store:
 
     # ---- reading ---------------------------------------------------------------------------
 
-    def job_rows(self, sweep: str) -> list[sa.Row[Any]]:
-        """The active jobs of ``sweep`` with their results (outer join), for reports."""
-        j, r = jobs_table.c, results_table.c
-        query = (sa.select(j.key, j.dataset, j.config_id, j.repeat, j.fold, j.state, j.attempts, j.error,
-                           j.timed_out, r.accuracy, r.balanced_accuracy, r.kappa, r.train_accuracy,
-                           r.fit_seconds, r.predict_seconds, r.figures, r.worker_version, r.host)
-                 .select_from(jobs_table.outerjoin(results_table, j.key == r.key))
-                 .where(j.sweep == sweep, j.active))
+    def job_states(self, sweep: str) -> list[tuple[str, str, str | None, bool]]:
+        """(key, state, error, timed_out) of every active job of ``sweep``."""
+        j = jobs_table.c
+        query = sa.select(j.key, j.state, j.error, j.timed_out).where(j.sweep == sweep, j.active)
         with self.engine.connect() as conn:
-            return list(conn.execute(query).all())
+            return [tuple(r) for r in conn.execute(query)]
+
+    def done_results(self, sweep: str, *, figures: bool = True) -> tuple[list[tuple[Any, ...]], list[str]]:
+        """(rows, column names) of the finished active jobs of ``sweep`` with their metrics."""
+        j, r = jobs_table.c, results_table.c
+        columns = [j.key, j.dataset, j.config_id, j.repeat, j.fold, r.accuracy, r.balanced_accuracy, r.kappa,
+                   r.train_accuracy, r.fit_seconds, r.predict_seconds, r.worker_version, r.host]
+        if figures:
+            columns.append(r.figures)
+        query = (sa.select(*columns).select_from(jobs_table.join(results_table, j.key == r.key))
+                 .where(j.sweep == sweep, j.active, j.state == "done"))
+        with self.engine.connect() as conn:
+            result = conn.execute(query)
+            return result.fetchall(), list(result.keys())
 
     def configurations(self) -> dict[str, tuple[str, str, dict[str, Any]]]:
         """config_id -> (worker, label, parameters)."""

@@ -44,7 +44,14 @@ def _parquet_bytes(frame: Any) -> bytes:
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    table = pa.Table.from_pandas(frame, preserve_index=False)
+    try:
+        table = pa.Table.from_pandas(frame, preserve_index=False)
+    except (pa.ArrowTypeError, pa.ArrowInvalid):
+        # a parameter name shared by workers with different value types: write that column as text
+        mixed = [c for c in frame.columns if frame[c].dtype == object
+                 and len({type(v) for v in frame[c].dropna()}) > 1]
+        frame = frame.assign(**{c: frame[c].map(lambda v: None if v is None else str(v)) for c in mixed})
+        table = pa.Table.from_pandas(frame, preserve_index=False)
     # pandas >= 3 hands strings over as large_string; results.arrow.json publishes them as string
     table = table.cast(pa.schema([f.with_type(pa.string()) if f.type == pa.large_string() else f
                                   for f in table.schema], metadata=table.schema.metadata))
