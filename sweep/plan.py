@@ -15,7 +15,8 @@ import hashlib
 import itertools
 import json
 from dataclasses import dataclass
-from typing import Any, Iterable, Mapping
+from functools import cached_property
+from typing import Any, Mapping
 
 from sweep.errors import SpecError
 from sweep.spec import ModelBlock, Spec
@@ -49,13 +50,30 @@ class PlannedJob:
 
 @dataclass(frozen=True)
 class Plan:
-    configurations: tuple[Configuration, ...]
-    jobs: tuple[PlannedJob, ...]
-    scheme: str
+    """Configurations, the datasets' fingerprints and the fold scheme; jobs are expanded on first use."""
 
-    @property
+    configurations: tuple[Configuration, ...]
+    #: (dataset name, fingerprint), in spec order
+    datasets: tuple[tuple[str, str], ...]
+    scheme: str
+    repeats: int
+    k: int
+
+    @cached_property
+    def jobs(self) -> tuple[PlannedJob, ...]:
+        """Every job: datasets × configurations × repeats × folds, in that order."""
+        folds = [(r, f) for r in range(self.repeats) for f in range(self.k)]
+        return tuple(PlannedJob(job_key(fp, self.scheme, r, f, c.config_id, c.worker_version), name, fp,
+                                c.config_id, r, f)
+                     for name, fp in self.datasets for c in self.configurations for r, f in folds)
+
+    @cached_property
     def by_config(self) -> dict[str, Configuration]:
         return {c.config_id: c for c in self.configurations}
+
+    @property
+    def jobs_per_cell(self) -> int:
+        return self.repeats * self.k
 
 
 def canonical_json(params: Mapping[str, Any]) -> str:
@@ -112,18 +130,5 @@ def make_plan(spec: Spec, fingerprints: Mapping[str, str], workers: Mapping[str,
             raise SpecError(f"{spec.path}: model[{i}] {block.label!r}: the grid is empty after its exclude rules")
         for config in expanded:
             configurations.setdefault(config.config_id, config)
-    scheme = spec.folds.key
-    jobs = tuple(_jobs(spec, fingerprints, configurations.values(), scheme))
-    return Plan(tuple(configurations.values()), jobs, scheme)
-
-
-def _jobs(spec: Spec, fingerprints: Mapping[str, str], configs: Iterable[Configuration],
-          scheme: str) -> Iterable[PlannedJob]:
-    folds = [(r, f) for r in range(spec.folds.repeats) for f in range(spec.folds.k)]
-    for entry in spec.datasets:
-        name = entry["name"]
-        fp = fingerprints[name]
-        for config in configs:
-            for repeat, fold in folds:
-                key = job_key(fp, scheme, repeat, fold, config.config_id, config.worker_version)
-                yield PlannedJob(key, name, fp, config.config_id, repeat, fold)
+    datasets = tuple((entry["name"], fingerprints[entry["name"]]) for entry in spec.datasets)
+    return Plan(tuple(configurations.values()), datasets, spec.folds.key, spec.folds.repeats, spec.folds.k)

@@ -28,8 +28,13 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True) -> tuple[
 
     rows, columns = store.done_results(inputs.spec.name, figures=figures)
     frame = pd.DataFrame.from_records(rows, columns=columns)
-    frame = frame[frame["key"].isin(pd.Index([j.key for j in inputs.plan.jobs]))]
-    configs = inputs.plan.configurations
+    plan = inputs.plan
+    configs = plan.configurations
+    # the plan's jobs, told apart by what their keys hash (no need to expand every key)
+    version = frame["config_id"].map({c.config_id: c.worker_version for c in configs})
+    in_plan = ((version == frame["worker_version"]) & (frame["dataset"].map(dict(plan.datasets)) == frame["fingerprint"])
+               & (frame["scheme"] == plan.scheme) & (frame["repeat"] < plan.repeats) & (frame["fold"] < plan.k))
+    frame = frame[in_plan].drop(columns=["fingerprint", "scheme"])
     params = sorted({name for c in configs for name in c.params})
     table = pd.DataFrame({"config_id": [c.config_id for c in configs], "worker": [c.worker for c in configs],
                           "label": [c.label for c in configs],
@@ -69,6 +74,7 @@ def load_sweep_results(spec_path: str | Path) -> Any:
         frame, params = results_frame(inputs, store)
     finally:
         store.close()
-    planned = (pd.DataFrame([(j.dataset, j.config_id) for j in inputs.plan.jobs], columns=["dataset", "config_id"])
-               .groupby(["dataset", "config_id"]).size().rename("jobs").reset_index())
+    plan = inputs.plan
+    planned = pd.DataFrame([(name, c.config_id, plan.jobs_per_cell) for name, _ in plan.datasets
+                            for c in plan.configurations], columns=["dataset", "config_id", "jobs"])
     return SweepResults(frame=frame, params=params, planned=planned, spec_path=Path(spec_path))

@@ -416,7 +416,7 @@ class Store:
     def done_results(self, sweep: str, *, figures: bool = True) -> tuple[list[tuple[Any, ...]], list[str]]:
         """(rows, column names) of the finished active jobs of ``sweep`` with their metrics."""
         j, r = jobs_table.c, results_table.c
-        columns = [j.key, j.dataset, j.config_id, j.repeat, j.fold, r.accuracy, r.balanced_accuracy, r.kappa,
+        columns = [j.key, j.dataset, j.fingerprint, j.scheme, j.config_id, j.repeat, j.fold, r.accuracy, r.balanced_accuracy, r.kappa,
                    r.train_accuracy, r.fit_seconds, r.predict_seconds, r.worker_version, r.host]
         if figures:
             columns.append(r.figures)
