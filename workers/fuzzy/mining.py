@@ -70,6 +70,8 @@ def support_confidence(match: np.ndarray, in_class: np.ndarray) -> tuple[np.ndar
     in_c = match @ in_class.astype(float)
     total = match.sum(axis=1)
     conf = np.divide(in_c, total, out=np.zeros_like(in_c), where=total > 0)
+    # the two sums round differently: a pure rule could reach 1 + eps
+    np.minimum(conf, 1.0, out=conf)
     return in_c / n, conf
 
 
