@@ -1,0 +1,169 @@
+"""The Sugeno lambda: the root lambda > -1 of ``1 + lambda = prod(1 + lambda * g_i)``.
+
+Solved for many density vectors at once, without polynomial root finding.
+
+The unknown is ``u = log1p(lambda)``. In ``u`` the equation reads
+``phi(u) = sum_i log(1 - g_i + g_i e^u) - u = 0``; each term is a
+log-sum-exp of ``u``, so ``phi`` is convex, with ``phi(0) = 0`` (the
+trivial root), ``phi'(0) = sum(g) - 1`` and linear asymptotes on both sides.
+The wanted root is therefore the only other zero, on the side of 0 that
+the sign of ``1 - sum(g)`` gives, and Newton's method started anywhere on
+the far side of it ("outer" side, ``phi >= 0``) converges monotonically.
+The iteration below keeps, per vector, the nearest known inner point
+(``phi < 0``, starting at 0) and the nearest known outer point, and falls
+back to bisection or to expansion when a Newton step would leave them.
+
+``phi`` is evaluated in one of two ways, chosen per vector:
+
+* far from ``sum(g) = 1`` from a pairwise product of ``1 + lambda g_i``
+  (a logarithm per vector, not per density: this is the fast path);
+* close to it, where the product is close to 1 and its logarithm would
+  lose the digits that decide the root, from ``prod(1 + lambda g) - 1``
+  accumulated without cancellation (:func:`tree_expm1_prod`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from workers.fuzzy._trees import tree_expm1_prod, tree_prod
+
+#: ``|sum(g) - 1|`` up to this is taken as ``sum(g) == 1``: lambda = 0
+SUM_TOL = 1e-12
+#: stop when a step changes lambda by at most this, relatively
+STEP_RTOL = 1e-12
+#: ``(sum(g) - 1)**2 < NEAR * sum(g (1 - g))`` selects the accurate evaluation
+NEAR = 1e-2
+MAX_ITER = 100
+_U_MAX = 709.0  # expm1 stays finite
+_U_MIN = -745.0  # exp underflows to 0 below: lambda == -1 in floating point
+_COMPACT = 0.75  # copy the unfinished rows out once fewer than this share remain
+
+
+def lambda_rows(g: np.ndarray, enough: np.ndarray | None = None,
+                has_one: np.ndarray | None = None) -> np.ndarray:
+    """Sugeno lambda of each row of ``g`` (rows, n), densities in [0, 1].
+
+    ``enough`` (at least two positive densities) and ``has_one`` (some
+    density equals 1) may be passed when the caller knows them cheaply,
+    e.g. from sorted rows.
+    """
+    rows, n = g.shape
+    if enough is None:
+        enough = np.count_nonzero(g, axis=1) >= 2
+    if has_one is None:
+        has_one = (g == 1.0).any(axis=1)
+    s = np.einsum("ij->i", g)
+    lam = np.zeros(rows)
+    lam[enough & has_one] = -1.0
+    todo = enough & ~has_one & (np.abs(s - 1.0) > SUM_TOL)
+    idx = np.flatnonzero(todo)
+    if idx.size == 0:
+        return lam
+    sub = g if idx.size == rows else g[idx]
+    s_sub = s[idx]
+    q_sub = np.einsum("ij,ij->i", sub, sub)
+    lam[idx] = _solve(sub, s_sub, q_sub)
+    return lam
+
+
+def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
+    """Newton on ``phi(u)`` for rows with >= 2 positive densities, none 1, ``sum != 1``."""
+    v = s - q  # sum g (1 - g) > 0 here
+    u0 = _start(s, q, v)
+    near = (s - 1.0) ** 2 < NEAR * v
+    lam = np.empty(len(s))
+    for mask, kernel in ((near, _phi_near), (~near, _phi_far)):
+        idx = np.flatnonzero(mask)
+        if idx.size:
+            sub = g if idx.size == len(s) else g[idx]
+            lam[idx] = _newton(sub, u0[idx], np.where(s[idx] < 1.0, 1.0, -1.0), kernel)
+    return lam
+
+
+def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """A first ``u`` per row: the root of the quadratic Taylor model of ``phi`` at 0.
+
+    ``phi(u) ~ (s - 1) u + v u**2 / 2``. For ``s < 1`` it is capped by the
+    root bound ``lambda <= (1 - s) / e2`` (``e2`` the second elementary
+    symmetric polynomial), which one Newton step on the deflated polynomial
+    ``(prod(1 + lambda g) - 1 - lambda) / lambda`` from 0 gives.
+    """
+    with np.errstate(divide="ignore", over="ignore"):
+        u = -2.0 * (s - 1.0) / v
+        e2 = np.maximum(0.5 * (s * s - q), 1e-300)
+        cap = np.log1p(np.minimum((1.0 - s) / e2, 1e300))
+    u = np.where(s < 1.0, np.minimum(u, cap), u)
+    return np.clip(u, _U_MIN, _U_MAX)
+
+
+def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarray:
+    """Safeguarded Newton in ``w = sigma * u > 0`` (the root's side made positive)."""
+    rows = len(u)
+    w_max = np.where(sigma > 0, _U_MAX, -_U_MIN)
+    w = sigma * u
+    w_in = np.zeros(rows)  # inner points: phi < 0, between 0 and the root
+    w_out = np.full(rows, np.inf)  # outer points: phi >= 0
+    result = np.empty(rows)
+    where = np.arange(rows)  # original row of each row still in g
+    alive = np.ones(rows, dtype=bool)  # rows of g not yet converged
+    lam = np.expm1(sigma * w)
+    for _ in range(MAX_ITER):
+        u = sigma * w
+        phi, dphi = kernel(g, lam, u)
+        inner = phi < 0.0
+        w_in = np.where(inner, np.maximum(w_in, w), w_in)
+        w_out = np.where(inner, w_out, np.minimum(w_out, w))
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            cand = w - sigma * (phi / dphi)
+        ok = (cand > w_in) & (cand <= w_out)
+        cand = np.where(ok, cand, np.where(np.isfinite(w_out), 0.5 * (w_in + w_out), 4.0 * w))
+        cand = np.minimum(cand, w_max)
+        lam_new = np.expm1(sigma * cand)
+        done = alive & ((np.abs(lam_new - lam) <= STEP_RTOL * np.abs(lam_new)) | (cand == w))
+        result[where[done]] = lam_new[done]
+        alive &= ~done
+        n_alive = np.count_nonzero(alive)
+        if n_alive == 0:
+            return result
+        w = np.where(alive, cand, w)
+        lam = np.where(alive, lam_new, lam)
+        if n_alive < _COMPACT * len(alive):  # copy the unfinished rows out
+            keep = alive
+            g, where, w, lam = g[keep], where[keep], w[keep], lam[keep]
+            w_in, w_out, sigma, w_max = w_in[keep], w_out[keep], sigma[keep], w_max[keep]
+            alive = np.ones(n_alive, dtype=bool)
+    result[where[alive]] = lam[alive]  # not reached in practice: bisection bounds the count
+    return result
+
+
+def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``phi`` and ``phi'`` from a pairwise product (fast; for lambda away from 0).
+
+    ``prod(1 + lam g) = lam**n prod(g + 1/lam)`` and
+    ``sum g / (1 + lam g) = sum(g / (g + 1/lam)) / lam`` need one addition
+    and one division per density.
+    """
+    n = g.shape[1]
+    c = 1.0 / lam
+    b = g + c[:, None]
+    r = np.divide(g, b)
+    d = np.einsum("ij->i", r) / lam
+    with np.errstate(over="ignore", under="ignore"):
+        p = np.abs(tree_prod(b))
+    ok = (p > 1e-300) & (p < 1e300)
+    logp = np.log(np.where(ok, p, 1.0)) + n * np.log(np.abs(lam))
+    if not ok.all():  # under/overflow of the product: sum the logarithms instead
+        bad = ~ok
+        logp[bad] = np.log1p(g[bad] * lam[bad, None]).sum(axis=1)
+    return logp - u, np.exp(u) * d - 1.0
+
+
+def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``phi`` and ``phi'`` with ``prod(1 + a) - 1`` accumulated without cancellation."""
+    a = g * lam[:, None]
+    r = a + 1.0
+    np.divide(g, r, out=r)
+    d = np.einsum("ij->i", r)
+    e = tree_expm1_prod(a)
+    return np.log1p(e) - u, np.exp(u) * d - 1.0
