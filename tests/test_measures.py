@@ -128,8 +128,10 @@ def test_lambda_matches_numpy_roots():
         roots = roots_lambda(g)
         ref = roots[np.argmin(np.abs(roots - got))]
         assert abs(got - ref) <= (1e-5 + condition(g)) * abs(ref) + 1e-12, (g.tolist(), got, roots)
-        if ref > -1:
-            assert residual(g, got) <= residual(g, ref) + 64 * EPS * abs(got), (g.tolist(), got, ref)
+        if ref > -1:  # the residual, up to rounding in h and a few ulps of lambda times h's slope
+            slope = np.abs(g / (1 + got * g)).sum() + 1 / (1 + got)
+            noise = 8 * EPS * (abs(got) * slope + 2 * abs(np.log1p(got)) + 1)
+            assert residual(g, got) <= residual(g, ref) + noise, (g.tolist(), got, ref)
 
 
 def test_lambda_solves_its_equation_near_sum_one():

@@ -37,6 +37,9 @@ NEAR = 1e-2
 MAX_ITER = 100
 _U_MAX = 709.0  # expm1 stays finite
 _U_MIN = -745.0  # exp underflows to 0 below: lambda == -1 in floating point
+_U_DEEP = -60.0  # a start on the outer side for sum(g) > 1: exp(-60) ~ 1e-26
+#: accept a step once Newton's error estimate for it is below this (relative, on lambda)
+ACCEPT = 1e-12
 _COMPACT = 0.75  # copy the unfinished rows out once fewer than this share remain
 
 
@@ -70,8 +73,8 @@ def lambda_rows(g: np.ndarray, enough: np.ndarray | None = None,
 def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
     """Newton on ``phi(u)`` for rows with >= 2 positive densities, none 1, ``sum != 1``."""
     v = s - q  # sum g (1 - g) > 0 here
-    u0 = _start(s, q, v)
     near = (s - 1.0) ** 2 < NEAR * v
+    u0 = _start(s, q, v, near)
     lam = np.empty(len(s))
     for mask, kernel in ((near, _phi_near), (~near, _phi_far)):
         idx = np.flatnonzero(mask)
@@ -81,24 +84,38 @@ def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
     return lam
 
 
-def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """A first ``u`` per row: the root of the quadratic Taylor model of ``phi`` at 0.
+def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray, near: np.ndarray) -> np.ndarray:
+    """A first ``u`` per row.
 
+    Close to ``s = 1``: the root of the quadratic Taylor model of ``phi`` at 0,
     ``phi(u) ~ (s - 1) u + v u**2 / 2``. For ``s < 1`` it is capped by the
     root bound ``lambda <= (1 - s) / e2`` (``e2`` the second elementary
     symmetric polynomial), which one Newton step on the deflated polynomial
-    ``(prod(1 + lambda g) - 1 - lambda) / lambda`` from 0 gives.
+    ``(prod(1 + lambda g) - 1 - lambda) / lambda`` from 0 gives. For ``s > 1``
+    and a quadratic model root below -2: far out on the outer side, where ``phi`` is linear
+    (``sum log(1 - g) - u``), so that the first step lands on that
+    asymptote's root, an outer point, and is often already the answer
+    (``lambda`` within 1e-12 of -1).
     """
     with np.errstate(divide="ignore", over="ignore"):
         u = -2.0 * (s - 1.0) / v
         e2 = np.maximum(0.5 * (s * s - q), 1e-300)
         cap = np.log1p(np.minimum((1.0 - s) / e2, 1e300))
-    u = np.where(s < 1.0, np.minimum(u, cap), u)
+    u = np.where(s < 1.0, np.minimum(u, cap), np.where(near | (u > -2.0), u, _U_DEEP))
     return np.clip(u, _U_MIN, _U_MAX)
 
 
 def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarray:
-    """Safeguarded Newton in ``w = sigma * u > 0`` (the root's side made positive)."""
+    """Safeguarded Halley iteration in ``w = sigma * u > 0`` (the root's side made positive).
+
+    Halley's correction of the Newton step costs one more sum per
+    evaluation and makes convergence cubic. A row stops when the step
+    changes lambda by less than ``STEP_RTOL``, or when the step in ``u`` is
+    already small (below 1e-3 relative, so that the curvature at hand
+    describes the way to the root) and Newton's a posteriori error estimate
+    ``|phi'' / (2 phi')| step**2`` of the new point is below ``ACCEPT``
+    (relative, on lambda): that saves the confirming evaluation.
+    """
     rows = len(u)
     w_max = np.where(sigma > 0, _U_MAX, -_U_MIN)
     w = sigma * u
@@ -110,17 +127,25 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
     lam = np.expm1(sigma * w)
     for _ in range(MAX_ITER):
         u = sigma * w
-        phi, dphi = kernel(g, lam, u)
+        phi, d1, d2 = kernel(g, lam, u)
         inner = phi < 0.0
         w_in = np.where(inner, np.maximum(w_in, w), w_in)
         w_out = np.where(inner, w_out, np.minimum(w_out, w))
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-            cand = w - sigma * (phi / dphi)
+            newton = phi / d1
+            curv = np.minimum(newton * d2 / d1, 1.0)  # Halley: step / (1 - curv / 2), curv < 2 kept
+            step = newton / (1.0 - 0.5 * curv)
+            cand = w - sigma * step
+            est = np.abs(0.5 * d2 / d1) * step * step
         ok = (cand > w_in) & (cand <= w_out)
         cand = np.where(ok, cand, np.where(np.isfinite(w_out), 0.5 * (w_in + w_out), 4.0 * w))
         cand = np.minimum(cand, w_max)
         lam_new = np.expm1(sigma * cand)
-        done = alive & ((np.abs(lam_new - lam) <= STEP_RTOL * np.abs(lam_new)) | (cand == w))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            est_lam = est * np.abs((1.0 + lam_new) / lam_new)
+        change = np.abs(lam_new - lam)
+        close = ok & (np.abs(step) <= 1e-3 * np.maximum(np.abs(u), 1.0)) & (est_lam <= ACCEPT)
+        done = alive & ((change <= STEP_RTOL * np.abs(lam_new)) | (cand == w) | close)
         result[where[done]] = lam_new[done]
         alive &= ~done
         n_alive = np.count_nonzero(alive)
@@ -137,18 +162,19 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
     return result
 
 
-def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``phi`` and ``phi'`` from a pairwise product (fast; for lambda away from 0).
+def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
+    """``phi``, ``phi'`` and ``phi''`` from a pairwise product (fast; for lambda away from 0).
 
     ``prod(1 + lam g) = lam**n prod(g + 1/lam)`` and
-    ``sum g / (1 + lam g) = sum(g / (g + 1/lam)) / lam`` need one addition
-    and one division per density.
+    ``r = g / (1 + lam g) = (g / (g + 1/lam)) / lam`` need one addition and
+    one division per density.
     """
     n = g.shape[1]
     c = 1.0 / lam
     b = g + c[:, None]
     r = np.divide(g, b)
-    d = np.einsum("ij->i", r) / lam
+    r1 = np.einsum("ij->i", r)
+    r2 = np.einsum("ij,ij->i", r, r)
     with np.errstate(over="ignore", under="ignore"):
         p = np.abs(tree_prod(b))
     ok = (p > 1e-300) & (p < 1e300)
@@ -156,14 +182,22 @@ def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray) -> tuple[np.ndarray,
     if not ok.all():  # under/overflow of the product: sum the logarithms instead
         bad = ~ok
         logp[bad] = np.log1p(g[bad] * lam[bad, None]).sum(axis=1)
-    return logp - u, np.exp(u) * d - 1.0
+    return logp - u, *_derivatives(r1 / lam, r2 / (lam * lam), u)
 
 
-def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``phi`` and ``phi'`` with ``prod(1 + a) - 1`` accumulated without cancellation."""
+def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
+    """``phi``, ``phi'``, ``phi''`` with ``prod(1 + a) - 1`` accumulated without cancellation."""
     a = g * lam[:, None]
     r = a + 1.0
     np.divide(g, r, out=r)
-    d = np.einsum("ij->i", r)
+    r1 = np.einsum("ij->i", r)
+    r2 = np.einsum("ij,ij->i", r, r)
     e = tree_expm1_prod(a)
-    return np.log1p(e) - u, np.exp(u) * d - 1.0
+    return np.log1p(e) - u, *_derivatives(r1, r2, u)
+
+
+def _derivatives(r1: np.ndarray, r2: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``phi' = e^u sum r - 1`` and ``phi'' = e^u sum r - e^2u sum r**2``, ``r = g / (1 + lam g)``."""
+    eu = np.exp(u)
+    first = eu * r1
+    return first - 1.0, first - eu * eu * r2

@@ -259,10 +259,13 @@ class _Plan:
             lam = self.lam[sl]
         else:
             xs = _sorted(xb)
+            if kind == "choquet":  # zeros sort first and take no part: drop the all-zero columns
+                xs = xs.reshape(-1, self.width)
+                xs = xs[:, _zero_columns(xs):]
             gs = xs
-            lam = lambda_of_rows(xs.reshape(-1, self.width), sorted_rows=True).reshape(xs.shape[:-1])
+            lam = lambda_of_rows(xs.reshape(-1, xs.shape[-1]), sorted_rows=True).reshape(xs.shape[:-1])
         if kind == "choquet":
-            return _lambda_choquet(xs, gs, lam)
+            return _lambda_choquet(xs, gs, lam).reshape(xb.shape[:-1])
         return _from_chain(xs, lambda_chain(gs, lam), kind, tnorm)
 
 
@@ -278,6 +281,14 @@ def _lambda_choquet(xs: np.ndarray, gs: np.ndarray, lam: np.ndarray) -> np.ndarr
     b = g2 * lam.reshape(-1, 1)
     b += 1.0
     return tree_weighted_suffix(c, b).reshape(shape)
+
+
+def _zero_columns(xs: np.ndarray) -> int:
+    """How many leading columns of sorted rows are all zero (at most width - 1)."""
+    j = 0
+    while j < xs.shape[1] - 1 and not xs[:, j].any():
+        j += 1
+    return j
 
 
 def _increments_to_weights(chain: np.ndarray) -> np.ndarray:
