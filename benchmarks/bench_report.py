@@ -7,6 +7,13 @@ then prints the peak resident memory of the process. Targets (issue 5): the
 reports in <= 10 s together, peak memory <= 2 GiB.
 
     python benchmarks/bench_report.py [--datasets 30] [--configs 1000] [--folds 5] [--repeats 7] [--trace]
+    python benchmarks/bench_report.py --store      # the same shape read from a real SQLite tracker
+
+``--store`` builds a real tracker first (a spec of synthetic datasets and a
+grid of the benchmark's spin worker, every job marked done with synthetic
+metrics), then, in a fresh process, times ``load_sweep_results`` (spec,
+datasets, plan, SQL, frame) followed by the reports, and that process's peak
+memory.
 
 ``--trace`` repeats the run under tracemalloc and prints the peak of
 traced allocations (slower; the timings of that pass are not the figures).
@@ -94,14 +101,86 @@ def run_reports(res: SweepResults) -> dict[str, float]:
     return times
 
 
+def build_store(folder: Path, n_datasets: int, n_configs: int, folds: int, repeats: int) -> Path:
+    """A spec and a tracker holding n_datasets x n_configs x repeats x folds done jobs."""
+    import sqlite3
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from sweep.run import load_inputs, open_store, sync_store
+
+    datasets = "".join(f"""
+[[dataset]]
+name = "d{i:02d}"
+synthetic = {{ n_samples = 60, n_features = 4, n_informative = 2, n_redundant = 0, random_state = {i} }}
+""" for i in range(n_datasets))
+    spec = folder / "big.toml"
+    spec.write_text(f"""name = "big"\nstore = "big.sqlite"\n[folds]\nk = {folds}\nrepeats = {repeats}\n{datasets}
+[[model]]
+worker = "spin_worker:SPIN"
+grid = {{ index = {list(range(n_configs))} }}
+""")
+    inputs = load_inputs(spec)
+    store = open_store(inputs.spec)
+    sync_store(store, inputs)
+    store.close()
+    rng = np.random.default_rng(0)
+    con = sqlite3.connect(folder / "big.sqlite")
+    keys = [k for (k,) in con.execute("SELECT key FROM jobs")]
+    acc = rng.uniform(0.5, 1.0, size=len(keys))
+    con.execute("UPDATE jobs SET state = 'done'")
+    con.executemany("INSERT INTO results VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
+                    ((k, a, a, 2 * a - 1, a, 0.5, 0.01, '{"rules_selected": 9}', None, "1", "bench", 0.0)
+                     for k, a in zip(keys, acc.tolist())))
+    con.commit()
+    con.close()
+    return spec
+
+
+def from_store(spec: Path) -> None:
+    """Time the loader and the reports over a real tracker (run in a fresh process)."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from sweep.results import load_sweep_results
+
+    t0 = time.perf_counter()
+    res = load_sweep_results(spec)
+    load = time.perf_counter() - t0
+    times = run_reports(res)
+    core = sum(times[k] for k in ("best", "table markdown", "rank (Friedman, CD)"))
+    peak_rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
+    print(f"rows read from the tracker: {len(res.frame):,}")
+    print(f"  load_sweep_results (spec, plan, SQL, frame): {load:7.2f} s")
+    print(f"  best + table + rank:                         {core:7.2f} s")
+    print(f"  load + best + table + rank:                  {load + core:7.2f} s   (target <= 10 s, "
+          f"ratio {(load + core) / 10:.2f})")
+    print(f"  peak RSS: {peak_rss:.2f} GiB   (target <= 2 GiB, ratio {peak_rss / 2:.2f})")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--store", action="store_true", help="read the rows from a real SQLite tracker")
+    ap.add_argument("--load-spec", help=argparse.SUPPRESS)
     ap.add_argument("--datasets", type=int, default=30)
     ap.add_argument("--configs", type=int, default=1000)
     ap.add_argument("--folds", type=int, default=5)
     ap.add_argument("--repeats", type=int, default=7)
     ap.add_argument("--trace", action="store_true")
     args = ap.parse_args()
+    if args.load_spec:
+        from_store(Path(args.load_spec))
+        return
+    if args.store:
+        import os
+        import subprocess
+        import tempfile
+
+        with tempfile.TemporaryDirectory() as tmp:
+            os.environ.setdefault("FOLDSWEEP_CACHE", str(Path(tmp) / "cache"))
+            t0 = time.perf_counter()
+            spec = build_store(Path(tmp), args.datasets, args.configs, args.folds, args.repeats)
+            print(f"built a tracker of {args.datasets * args.configs * args.folds * args.repeats:,} done jobs "
+                  f"in {time.perf_counter() - t0:.1f} s")
+            subprocess.run([sys.executable, __file__, "--load-spec", str(spec)], check=True)
+        return
 
     t0 = time.perf_counter()
     res = synthetic_results(args.datasets, args.configs, args.folds, args.repeats)

@@ -18,7 +18,7 @@ METRICS = ("accuracy", "balanced_accuracy", "kappa", "train_accuracy", "fit_seco
 ID_COLUMNS = ("key", "dataset", "config_id", "worker", "label", "repeat", "fold")
 
 
-def results_frame(inputs: Inputs, store: Any, *, figures: bool = True) -> tuple[Any, list[str]]:
+def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: bool = True) -> tuple[Any, list[str]]:
     """(frame of the plan's finished jobs, parameter column names).
 
     Parameter columns keep their declared types (object dtype where
@@ -26,15 +26,15 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True) -> tuple[
     """
     import pandas as pd
 
-    rows, columns = store.done_results(inputs.spec.name, figures=figures)
-    frame = pd.DataFrame.from_records(rows, columns=columns)
     plan = inputs.plan
     configs = plan.configurations
-    # the plan's jobs, told apart by what their keys hash (no need to expand every key)
+    # the plan's jobs, told apart by what their keys hash (no need to expand every key): the store
+    # selects by scheme, fingerprint, repeat and fold; configuration and worker version are checked here
+    rows, columns = store.done_results(inputs.spec.name, scheme=plan.scheme, fingerprints=[fp for _, fp in plan.datasets],
+                                       repeats=plan.repeats, k=plan.k, figures=figures, keys=keys)
+    frame = pd.DataFrame.from_records(rows, columns=columns)
     version = frame["config_id"].map({c.config_id: c.worker_version for c in configs})
-    in_plan = ((version == frame["worker_version"]) & (frame["dataset"].map(dict(plan.datasets)) == frame["fingerprint"])
-               & (frame["scheme"] == plan.scheme) & (frame["repeat"] < plan.repeats) & (frame["fold"] < plan.k))
-    frame = frame[in_plan].drop(columns=["fingerprint", "scheme"])
+    frame = frame[version == frame["worker_version"]]
     params = sorted({name for c in configs for name in c.params})
     table = pd.DataFrame({"config_id": [c.config_id for c in configs], "worker": [c.worker for c in configs],
                           "label": [c.label for c in configs],
@@ -44,7 +44,7 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True) -> tuple[
     extra: list[str] = []
     if figures:
         frame, extra = _expand_figures(frame)
-    ordered = [*ID_COLUMNS, *params, *METRICS, *extra, "worker_version", "host"]
+    ordered = [c for c in ID_COLUMNS if keys or c != "key"] + [*params, *METRICS, *extra, "worker_version", "host"]
     frame = frame[ordered].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
     return frame.reset_index(drop=True), params
 
@@ -71,7 +71,7 @@ def load_sweep_results(spec_path: str | Path) -> Any:
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec, create=False)
     try:
-        frame, params = results_frame(inputs, store)
+        frame, params = results_frame(inputs, store, keys=False)
     finally:
         store.close()
     plan = inputs.plan

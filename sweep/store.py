@@ -413,18 +413,22 @@ class Store:
         with self.engine.connect() as conn:
             return [tuple(r) for r in conn.execute(query)]
 
-    def done_results(self, sweep: str, *, figures: bool = True) -> tuple[list[tuple[Any, ...]], list[str]]:
-        """(rows, column names) of the finished active jobs of ``sweep`` with their metrics."""
+    def done_results(self, sweep: str, *, scheme: str, fingerprints: Sequence[str], repeats: int, k: int,
+                     figures: bool = True, keys: bool = True) -> tuple[list[tuple[Any, ...]], list[str]]:
+        """(rows, column names) of the finished active jobs of ``sweep`` on these datasets and folds."""
         j, r = jobs_table.c, results_table.c
-        columns = [j.key, j.dataset, j.fingerprint, j.scheme, j.config_id, j.repeat, j.fold, r.accuracy, r.balanced_accuracy, r.kappa,
+        columns = [j.dataset, j.config_id, j.repeat, j.fold, r.accuracy, r.balanced_accuracy, r.kappa,
                    r.train_accuracy, r.fit_seconds, r.predict_seconds, r.worker_version, r.host]
+        columns = [j.key, *columns] if keys else columns
         if figures:
             columns.append(r.figures)
         query = (sa.select(*columns).select_from(jobs_table.join(results_table, j.key == r.key))
-                 .where(j.sweep == sweep, j.active, j.state == "done"))
+                 .where(j.sweep == sweep, j.active, j.state == "done", j.scheme == scheme,
+                        j.fingerprint.in_(list(fingerprints)), j.repeat < repeats, j.fold < k))
         with self.engine.connect() as conn:
             result = conn.execute(query)
-            return result.fetchall(), list(result.keys())
+            # plain DBAPI tuples: a million SQLAlchemy Row objects cost more than the query itself
+            return result.cursor.fetchall(), list(result.keys())
 
     def configurations(self) -> dict[str, tuple[str, str, dict[str, Any]]]:
         """config_id -> (worker, label, parameters)."""
