@@ -280,7 +280,8 @@ class Store:
             have = dict(conn.execute(sa.select(jobs_table.c.key, jobs_table.c.active)
                                      .where(jobs_table.c.sweep == sweep)).all())
             new = [j for k, j in wanted.items() if k not in have]
-            if new:
+            other_sweeps = conn.execute(sa.select(jobs_table.c.key).where(jobs_table.c.sweep != sweep).limit(1)).first()
+            if new and other_sweeps:  # a store shared by several specs: a key already planned elsewhere is theirs
                 others = self._keys_elsewhere(conn, [j.key for j in new])
                 new = [j for j in new if j.key not in others]
             for chunk in _chunks(new, 5000):
