@@ -7,11 +7,16 @@
   that scheduler places them; the worker count is the cluster's thread count.
 
 Each dataset is scattered once to every worker (``broadcast=True``) and
-every job refers to it, so no dataset travels with each job. The run loop
-keeps a bounded window of futures in flight. The embedded scheduler does not
-retry a task whose worker died (``allowed-failures = 0``): the run loop's own
-attempt accounting decides, and runs a retried job alone so that a job that
-kills its worker is identified exactly.
+every job refers to it, so no dataset travels with each job. A worker that
+starts later (a restart, a new batch job) fetches it from a peer; should
+every copy die with its workers, the dataset is scattered again before the
+next job that needs it. The run loop keeps a bounded window of futures in
+flight. The embedded scheduler does not retry a task whose worker died
+(``allowed-failures = 0``): the run loop's own attempt accounting decides,
+and runs a retried job alone so that a job that kills its worker is
+identified exactly. A task cancelled for another reason (its dataset's
+copies were lost, the scheduler restarted) goes back without counting an
+attempt against the job.
 """
 
 from __future__ import annotations
@@ -23,6 +28,9 @@ from sweep.errors import StoreError
 from sweep.executors import Executor
 from workers.job import Job, run_job
 
+#: seconds to wait for a worker before scattering a dataset again
+WORKER_WAIT_SECONDS = 120
+
 
 class DaskExecutor(Executor):
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
@@ -31,42 +39,65 @@ class DaskExecutor(Executor):
         from distributed import Client, LocalCluster
 
         self.cluster = None
+        #: fingerprint -> (dataset, the future of its scattered copies)
+        self._shared: dict[str, tuple[Any, Any]] = {}
         if scheduler:
             try:
-                self.client = Client(scheduler, timeout="20s")
+                self.client = Client(scheduler)  # waits distributed.comm.timeouts.connect (30 s)
             except (OSError, TimeoutError) as exc:
                 raise StoreError(f"--scheduler {scheduler}: cannot reach the dask scheduler: {exc}") from None
             self.workers = max(1, sum(self.client.nthreads().values()))
         else:
             with dask.config.set({"distributed.scheduler.allowed-failures": 0,
                                   "distributed.worker.daemon": False}):
+                # the scheduler's HTTP endpoints on a free loopback port: never the shared 8787
                 self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                             host="127.0.0.1", protocol="tcp", dashboard_address=None,
+                                            scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
                                             memory_limit=memory_limit or "auto", silence_logs=50)
                 self.client = Client(self.cluster)
             self.workers = workers
 
     def share(self, data: Any) -> Any:
-        return self.client.scatter(data, broadcast=True, hash=False)
+        future = self.client.scatter(data, broadcast=True, hash=False)
+        self._shared[data.fingerprint] = (data, future)
+        return future
 
     def submit(self, job: Job, handle: Any) -> Any:
-        return self.client.submit(run_job, job, handle, pure=False, retries=0)
+        return self.client.submit(run_job, job, self._current(job.fingerprint, handle), pure=False, retries=0)
+
+    def _current(self, fingerprint: str, handle: Any) -> Any:
+        data, future = self._shared.get(fingerprint, (None, handle))
+        if data is not None and future.status != "finished":  # every copy died with its workers
+            self.client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)  # restarting ones come back
+            future = self.client.scatter(data, broadcast=True, hash=False)
+            self._shared[fingerprint] = (data, future)
+        return future
 
     def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
         from distributed import wait
 
         futures = list(futures)
+        done = {f for f in futures if f.done()}
+        if done:
+            return done
         try:
             done, _ = wait(futures, timeout=timeout, return_when="FIRST_COMPLETED")
         except (TimeoutError, cf.TimeoutError):
             return set()
+        except cf.CancelledError:  # some were cancelled: hand them back, their result() raises
+            return {f for f in futures if f.done()}
         return set(done)
 
     def is_worker_death(self, exc: BaseException) -> bool:
         from distributed.scheduler import KilledWorker
 
-        return isinstance(exc, (KilledWorker, cf.CancelledError)) or type(exc).__name__ in (
-            "FutureCancelledError", "CommClosedError")
+        return isinstance(exc, (KilledWorker, cf.CancelledError)) or type(exc).__name__ == "CommClosedError"
+
+    def blames_job(self, exc: BaseException) -> bool:
+        from distributed.scheduler import KilledWorker
+
+        return isinstance(exc, KilledWorker)
 
     def close(self, *, kill: bool = False) -> None:
         self.client.close()

@@ -4,7 +4,9 @@ An executor ships each dataset once (:meth:`Executor.share`), submits
 ``workers.job.run_job`` calls and hands back futures with the
 ``concurrent.futures`` interface. A future whose worker process died raises
 an exception that :meth:`Executor.is_worker_death` recognises; the run loop
-then re-queues the job rather than recording it as the job's own failure.
+then re-queues the job rather than recording it as the job's own failure,
+counting the attempt when :meth:`Executor.blames_job` says the job was
+running in the process that died.
 
 Adding an executor: subclass :class:`Executor`, then add one line to
 ``EXECUTORS``.
@@ -41,6 +43,10 @@ class Executor:
 
     def is_worker_death(self, exc: BaseException) -> bool:
         return False
+
+    def blames_job(self, exc: BaseException) -> bool:
+        """Whether a worker death ``exc`` counts as an attempt of the job (it was running there)."""
+        return True
 
     def close(self, *, kill: bool = False) -> None:
         pass

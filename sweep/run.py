@@ -13,13 +13,16 @@ Events and what they do: a job finished (its result joins the next commit),
 a job raised (recorded failed with its traceback), its worker process died
 (the job goes back to pending; after ``max_attempts`` deaths it is failed,
 and a job retried after a death runs alone so that the blame is exact), a
-lease is due (renewed for the jobs in hand), Ctrl-C (stop dispatching,
-commit what finished, give the rest back as pending).
+lease is due (renewed for the jobs in hand; the jobs of other drivers whose
+lease expired, or who died on this host, go back to pending, as they also
+do when this driver's own work runs out), Ctrl-C (stop dispatching, commit
+what finished, give the rest back as pending).
 """
 
 from __future__ import annotations
 
 import os
+import re
 import sys
 import time
 from dataclasses import dataclass, field
@@ -208,6 +211,8 @@ class _Loop:
             while True:
                 self._dispatch()
                 if not self.inflight:
+                    if self._requeue_stale():  # a dead driver's jobs, found once ours ran out
+                        continue
                     break
                 for future in self.executor.wait(self.inflight, timeout=0.5):
                     self._collect(future)
@@ -217,6 +222,7 @@ class _Loop:
                     last_commit = now
                 if now - last_renew >= self.options.lease_seconds / 3:
                     self.store.renew(self.owner, [c.key for c in self.inflight.values()], self.options.lease_seconds)
+                    self._requeue_stale()
                     last_renew = now
             self._commit()
             self.executor.close()
@@ -225,6 +231,13 @@ class _Loop:
             self._stop()
         finally:
             self.progress.close()
+
+    def _requeue_stale(self) -> int:
+        """Give back to pending the jobs of drivers that died or lost touch (expired leases)."""
+        requeued = self.store.requeue_stale(self.spec.name)
+        if requeued:
+            self.exhausted = False
+        return requeued
 
     def _stop(self) -> None:
         print("interrupted: committing finished jobs, giving the rest back as pending", file=self.out, flush=True)
@@ -275,11 +288,12 @@ class _Loop:
         self.ran += 1
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
-        reason = f"worker process died ({type(exc).__name__}: {' '.join(str(exc).split())[:200]})"
-        if claimed.attempts >= self.spec.max_attempts:
+        reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"
+        blamed = self.executor.blames_job(exc)
+        if blamed and claimed.attempts >= self.spec.max_attempts:
             self.give_up[claimed.key] = f"{reason}; gave up after {claimed.attempts} attempts"
         else:
-            self.store.release(self.owner, [claimed.key], count_attempt=True)
+            self.store.release(self.owner, [claimed.key], count_attempt=blamed)
             self.exhausted = False
 
     def _commit(self) -> None:
@@ -289,3 +303,12 @@ class _Loop:
         ok = sum(r.ok for r in self.finished)
         self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up))
         self.finished, self.give_up = [], {}
+
+
+def _death_message(exc: BaseException) -> str:
+    """The first sentence of a worker-death error, without the engine's task names and addresses,
+    so that ``status`` groups the failures of one cause under one message."""
+    text = " ".join(str(exc).split())
+    text = re.sub(r"'[\w.-]+-[0-9a-f]{32}'|'run_job-[0-9a-f-]+'", "the job", text)
+    first = re.split(r"(?<=[.!?])\s", text, maxsplit=1)[0]
+    return first[:200]

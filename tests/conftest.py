@@ -53,3 +53,47 @@ def start_foldsweep(*args: Any, cwd: str | Path | None = None,
 def foldsweep() -> Callable[..., subprocess.CompletedProcess[str]]:
     """``foldsweep(*args, cwd=..., env=...)`` -> CompletedProcess of the real command."""
     return run_foldsweep
+
+
+# ---- PostgreSQL (the cluster issue's tests) ---------------------------------------------------
+
+def _pg_admin_url() -> str | None:
+    return os.environ.get("FOLDSWEEP_TEST_PG_URL") or None
+
+
+def _pg_unavailable(reason: str) -> None:
+    # in CI (.ci/run) the server must be there: a skip would hide the PostgreSQL tests
+    if os.environ.get("FOLDSWEEP_REQUIRE_PG") == "1":
+        pytest.fail(f"FOLDSWEEP_REQUIRE_PG=1 but {reason}", pytrace=False)
+    pytest.skip(reason)
+
+
+@pytest.fixture
+def pg_url() -> Any:
+    """The URL of a fresh, empty PostgreSQL database for this test (dropped afterwards).
+
+    Made on the server named by ``FOLDSWEEP_TEST_PG_URL`` (through its ``postgres``
+    database), so that tests never see each other's jobs. Skips when the variable is
+    unset or the server unreachable; fails instead when ``FOLDSWEEP_REQUIRE_PG=1``.
+    """
+    import uuid
+
+    url = _pg_admin_url()
+    if url is None:
+        _pg_unavailable("no PostgreSQL server: set FOLDSWEEP_TEST_PG_URL (bash .ci/postgres.sh starts one)")
+    try:
+        import sqlalchemy as sa
+
+        base = sa.engine.make_url(url)
+        admin = sa.create_engine(base.set(database="postgres"), isolation_level="AUTOCOMMIT")
+        name = f"foldsweep_t_{uuid.uuid4().hex[:12]}"
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f'CREATE DATABASE "{name}"')
+    except Exception as exc:  # noqa: BLE001 - any failure to reach the server means "unavailable"
+        _pg_unavailable(f"PostgreSQL at {url} is unreachable: {' '.join(str(exc).split())[:200]}")
+    try:
+        yield base.set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+        admin.dispose()

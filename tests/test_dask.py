@@ -1,0 +1,139 @@
+"""The dask.distributed backend, end to end through the real ``foldsweep`` command.
+
+- an embedded LocalCluster of 2 worker processes over TCP on loopback gives the same result rows
+  as the joblib backend;
+- an existing cluster (a LocalCluster started here, its scheduler in this process) reached with
+  ``--scheduler tcp://127.0.0.1:PORT`` gives the same rows, runs every job there, and receives each
+  dataset once (one scatter per dataset, counted at the scheduler), not once per job.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from tests.conftest import run_foldsweep
+
+#: columns that legitimately differ between two runs of the same jobs
+VOLATILE = ("fit_seconds", "predict_seconds", "host")
+
+SPEC = """
+name = "dask-e2e"
+[folds]
+k = 3
+seed = 4
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[dataset]]
+name = "synthetic"
+synthetic = { n_samples = 90, n_features = 5, n_informative = 3, n_classes = 3 }
+[[model]]
+worker = "decision_tree"
+grid = { max_depth = [2, 3] }
+[[model]]
+worker = "knn"
+grid = { n_neighbors = [3, 5] }
+"""
+JOBS = 2 * 4 * 3
+DATASETS = 2
+
+
+def _ok(proc: Any) -> Any:
+    assert proc.returncode == 0, f"exit {proc.returncode}\nstdout:\n{proc.stdout}\nstderr:\n{proc.stderr}"
+    return proc
+
+
+def _run(folder: Path, *extra: str) -> tuple[Path, dict[str, Any]]:
+    folder.mkdir(parents=True, exist_ok=True)
+    spec = folder / "sweep.toml"
+    spec.write_text(SPEC)
+    proc = _ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra))
+    return spec, json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def _rows(spec: Path) -> list[dict[str, Any]]:
+    text = _ok(run_foldsweep("results", spec, "--format", "json")).stdout
+    rows = [json.loads(line) for line in text.splitlines() if line.strip()]
+    return sorted(({k: v for k, v in r.items() if k not in VOLATILE} for r in rows), key=lambda r: r["key"])
+
+
+@pytest.fixture(scope="module")
+def joblib_rows(tmp_path_factory: pytest.TempPathFactory) -> list[dict[str, Any]]:
+    """The reference: the same spec through the embedded joblib backend with 2 worker processes."""
+    spec, summary = _run(tmp_path_factory.mktemp("joblib"), "--workers", "2")
+    assert summary["done"] == JOBS
+    return _rows(spec)
+
+
+def test_local_cluster_gives_the_joblib_rows(tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
+    spec, summary = _run(tmp_path, "--backend", "dask", "--workers", "2")
+    assert (summary["done"], summary["failed"], summary["pending"], summary["ran"]) == (JOBS, 0, 0, JOBS)
+    rows = _rows(spec)
+    # common practice: the same fold jobs through another execution engine give identical rows
+    assert len(rows) == JOBS and rows == joblib_rows
+
+
+class _Counter:
+    """Counts, at a scheduler living in this process, scatter requests and finished fold-job tasks."""
+
+    def __init__(self, scheduler: Any) -> None:
+        self.scatters = 0
+        self.scattered_keys: list[str] = []
+        self.jobs_done = 0
+        original = scheduler.handlers["scatter"]
+
+        async def scatter(*args: Any, **kwargs: Any) -> Any:
+            self.scatters += 1
+            keys = await original(*args, **kwargs)
+            self.scattered_keys.extend(map(str, keys))
+            return keys
+
+        scheduler.handlers["scatter"] = scatter
+        counter = self
+
+        from distributed.diagnostics.plugin import SchedulerPlugin
+
+        class _Finished(SchedulerPlugin):
+            def transition(self, key: Any, start: str, finish: str, *args: Any, **kwargs: Any) -> None:
+                if finish == "memory" and str(key).startswith("run_job-"):
+                    counter.jobs_done += 1
+
+        scheduler.add_plugin(_Finished(), name="foldsweep-test-counter")
+
+
+def test_existing_scheduler_runs_the_jobs_and_receives_each_dataset_once(
+        tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
+    from distributed import LocalCluster
+
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
+                      dashboard_address=None, scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                      silence_logs=50) as cluster:
+        counter = _Counter(cluster.scheduler)
+        address = cluster.scheduler_address
+        assert address.startswith("tcp://127.0.0.1:")
+        spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address)
+        assert (summary["done"], summary["failed"], summary["ran"]) == (JOBS, 0, JOBS)
+        assert counter.jobs_done == JOBS  # every fold job ran on this cluster
+        assert counter.scatters == DATASETS  # one scatter per dataset, not one per job
+        assert len(counter.scattered_keys) == DATASETS
+    assert _rows(spec) == joblib_rows
+
+
+def test_unreachable_scheduler_is_one_line_exit_2(tmp_path: Path) -> None:
+    import socket
+
+    with socket.socket() as sock:  # a loopback port that nothing listens on
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]
+    tmp_path.mkdir(exist_ok=True)
+    spec = tmp_path / "sweep.toml"
+    spec.write_text(SPEC)
+    proc = run_foldsweep("run", spec, "--backend", "dask", "--scheduler", f"tcp://127.0.0.1:{port}",
+                         "--progress", "none", env={"DASK_DISTRIBUTED__COMM__TIMEOUTS__CONNECT": "2s"})
+    assert proc.returncode == 2, proc.stderr
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and "cannot reach the dask scheduler" in lines[0], proc.stderr
