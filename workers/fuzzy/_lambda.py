@@ -51,27 +51,35 @@ def lambda_rows(g: np.ndarray, enough: np.ndarray | None = None,
     density equals 1) may be passed when the caller knows them cheaply,
     e.g. from sorted rows.
     """
-    rows, n = g.shape
     if enough is None:
         enough = np.count_nonzero(g, axis=1) >= 2
     if has_one is None:
         has_one = (g == 1.0).any(axis=1)
-    s = np.einsum("ij->i", g)
-    lam = np.zeros(rows)
+    return lambda_columns(np.ascontiguousarray(g.T), enough, has_one)
+
+
+def lambda_columns(gt: np.ndarray, enough: np.ndarray, has_one: np.ndarray) -> np.ndarray:
+    """Sugeno lambda of each column of ``gt`` (n, cols): the vectors as columns.
+
+    In this layout every step of the iteration is an element-wise
+    operation over whole rows, and the sums and products over a vector are
+    reductions along the first axis, which numpy vectorises.
+    """
+    cols = gt.shape[1]
+    s = np.add.reduce(gt, axis=0)
+    lam = np.zeros(cols)
     lam[enough & has_one] = -1.0
     todo = enough & ~has_one & (np.abs(s - 1.0) > SUM_TOL)
     idx = np.flatnonzero(todo)
     if idx.size == 0:
         return lam
-    sub = g if idx.size == rows else g[idx]
-    s_sub = s[idx]
-    q_sub = np.einsum("ij,ij->i", sub, sub)
-    lam[idx] = _solve(sub, s_sub, q_sub)
+    sub = gt if idx.size == cols else gt[:, idx]
+    lam[idx] = _solve(sub, s[idx], np.einsum("ij,ij->j", sub, sub))
     return lam
 
 
 def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
-    """Newton on ``phi(u)`` for rows with >= 2 positive densities, none 1, ``sum != 1``."""
+    """Halley on ``phi(u)`` for columns with >= 2 positive densities, none 1, ``sum != 1``."""
     v = s - q  # sum g (1 - g) > 0 here
     near = (s - 1.0) ** 2 < NEAR * v
     u0 = _start(s, q, v, near)
@@ -79,7 +87,7 @@ def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
     for mask, kernel in ((near, _phi_near), (~near, _phi_far)):
         idx = np.flatnonzero(mask)
         if idx.size:
-            sub = g if idx.size == len(s) else g[idx]
+            sub = g if idx.size == len(s) else g[:, idx]
             lam[idx] = _newton(sub, u0[idx], np.where(s[idx] < 1.0, 1.0, -1.0), kernel)
     return lam
 
@@ -155,7 +163,7 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
         lam = np.where(alive, lam_new, lam)
         if n_alive < _COMPACT * len(alive):  # copy the unfinished rows out
             keep = alive
-            g, where, w, lam = g[keep], where[keep], w[keep], lam[keep]
+            g, where, w, lam = g[:, keep], where[keep], w[keep], lam[keep]
             w_in, w_out, sigma, w_max = w_in[keep], w_out[keep], sigma[keep], w_max[keep]
             alive = np.ones(n_alive, dtype=bool)
     result[where[alive]] = lam[alive]  # not reached in practice: bisection bounds the count
@@ -163,35 +171,36 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
 
 
 def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
-    """``phi``, ``phi'`` and ``phi''`` from a pairwise product (fast; for lambda away from 0).
+    """``phi``, ``phi'`` and ``phi''`` from a product (fast; for lambda away from 0).
 
     ``prod(1 + lam g) = lam**n prod(g + 1/lam)`` and
     ``r = g / (1 + lam g) = (g / (g + 1/lam)) / lam`` need one addition and
     one division per density.
     """
-    n = g.shape[1]
-    c = 1.0 / lam
-    b = g + c[:, None]
+    n = g.shape[0]
+    b = g + (1.0 / lam)
     r = np.divide(g, b)
-    r1 = np.einsum("ij->i", r)
-    r2 = np.einsum("ij,ij->i", r, r)
+    r1 = np.add.reduce(r, axis=0)
+    r *= r
+    r2 = np.add.reduce(r, axis=0)
     with np.errstate(over="ignore", under="ignore"):
         p = np.abs(tree_prod(b))
     ok = (p > 1e-300) & (p < 1e300)
     logp = np.log(np.where(ok, p, 1.0)) + n * np.log(np.abs(lam))
     if not ok.all():  # under/overflow of the product: sum the logarithms instead
         bad = ~ok
-        logp[bad] = np.log1p(g[bad] * lam[bad, None]).sum(axis=1)
+        logp[bad] = np.log1p(g[:, bad] * lam[bad]).sum(axis=0)
     return logp - u, *_derivatives(r1 / lam, r2 / (lam * lam), u)
 
 
 def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
     """``phi``, ``phi'``, ``phi''`` with ``prod(1 + a) - 1`` accumulated without cancellation."""
-    a = g * lam[:, None]
+    a = g * lam
     r = a + 1.0
     np.divide(g, r, out=r)
-    r1 = np.einsum("ij->i", r)
-    r2 = np.einsum("ij,ij->i", r, r)
+    r1 = np.add.reduce(r, axis=0)
+    r *= r
+    r2 = np.add.reduce(r, axis=0)
     e = tree_expm1_prod(a)
     return np.log1p(e) - u, *_derivatives(r1, r2, u)
 

@@ -82,6 +82,7 @@ from workers.fuzzy._chain import (
     cardinality_chain,
     check_params,
     lambda_chain,
+    lambda_of_columns,
     lambda_of_rows,
     weight_chain,
 )
@@ -102,7 +103,7 @@ __all__ = [
 TNORMS = ("product", "minimum", "lukasiewicz", "hamacher")
 
 #: elements per block: small enough for the cache, large enough to amortise numpy's call overhead
-_BLOCK = 1 << 17
+_BLOCK = 1 << 18
 
 Measure = str | Callable[[np.ndarray], Any]
 
@@ -257,36 +258,41 @@ class _Plan:
             xs = _checked(np.take_along_axis(xb, order, axis=-1))
             gs = np.take_along_axis(self.densities[sl], order, axis=-1)
             lam = self.lam[sl]
-        else:
-            xs = _sorted(xb)
-            if kind == "choquet":  # zeros sort first and take no part: drop the all-zero columns
-                xs = xs.reshape(-1, self.width)
-                xs = xs[:, _zero_columns(xs):]
-            gs = xs
-            lam = lambda_of_rows(xs.reshape(-1, xs.shape[-1]), sorted_rows=True).reshape(xs.shape[:-1])
-        if kind == "choquet":
-            return _lambda_choquet(xs, gs, lam).reshape(xb.shape[:-1])
-        return _from_chain(xs, lambda_chain(gs, lam), kind, tnorm)
+            if kind == "choquet":
+                return _lambda_choquet(_columns(xs), _columns(gs), lam.reshape(-1)).reshape(xs.shape[:-1])
+            return _from_chain(xs, lambda_chain(gs, lam), kind, tnorm)
+        xs = _sorted(xb)
+        if kind != "choquet":
+            lam = lambda_of_rows(xs.reshape(-1, self.width), sorted_rows=True).reshape(xs.shape[:-1])
+            return _from_chain(xs, lambda_chain(xs, lam), kind, tnorm)
+        xt = _columns(xs)
+        xt = xt[_zero_rows(xt):]  # zeros sort first and take no part: drop the all-zero ones
+        lam = lambda_of_columns(xt)
+        return _lambda_choquet(xt, xt, lam).reshape(xs.shape[:-1])
 
 
-def _lambda_choquet(xs: np.ndarray, gs: np.ndarray, lam: np.ndarray) -> np.ndarray:
+def _columns(a: np.ndarray) -> np.ndarray:
+    """``(..., n)`` -> ``(n, vectors)`` contiguous: the layout of the lambda solver."""
+    return np.ascontiguousarray(a.reshape(-1, a.shape[-1]).T)
+
+
+def _lambda_choquet(xt: np.ndarray, gt: np.ndarray, lam: np.ndarray) -> np.ndarray:
     """``sum_i x(i) g(i) prod_{j > i} (1 + lam g(j))``: the Choquet integral for a lambda measure.
 
     ``mu(A(i)) - mu(A(i+1)) = g(i) prod_{j > i} (1 + lam g(j))``, so the
     integral is a linear recurrence over the sorted tail, reduced pairwise.
+    Vectors are the columns of ``xt`` and ``gt`` (n, vectors).
     """
-    shape, w = xs.shape[:-1], xs.shape[-1]
-    g2 = gs.reshape(-1, w)
-    c = xs.reshape(-1, w) * g2
-    b = g2 * lam.reshape(-1, 1)
+    c = xt * gt
+    b = gt * lam
     b += 1.0
-    return tree_weighted_suffix(c, b).reshape(shape)
+    return tree_weighted_suffix(c, b)
 
 
-def _zero_columns(xs: np.ndarray) -> int:
-    """How many leading columns of sorted rows are all zero (at most width - 1)."""
+def _zero_rows(xt: np.ndarray) -> int:
+    """How many leading rows of sorted columns are all zero (at most n - 1)."""
     j = 0
-    while j < xs.shape[1] - 1 and not xs[:, j].any():
+    while j < xt.shape[0] - 1 and not xt[j].any():
         j += 1
     return j
 
