@@ -83,13 +83,36 @@ def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
     v = s - q  # sum g (1 - g) > 0 here
     near = (s - 1.0) ** 2 < NEAR * v
     u0 = _start(s, q, v, near)
-    lam = np.empty(len(s))
-    for mask, kernel in ((near, _phi_near), (~near, _phi_far)):
+    lam = np.full(len(s), np.nan)
+    deep = np.flatnonzero(u0 == _U_DEEP)
+    if deep.size:
+        u0[deep], lam[deep] = _asymptote(g if deep.size == len(s) else g[:, deep], s[deep])
+    for mask, kernel in ((near, _phi_near), (~near & np.isnan(lam), _phi_far)):
         idx = np.flatnonzero(mask)
         if idx.size:
             sub = g if idx.size == len(s) else g[:, idx]
             lam[idx] = _newton(sub, u0[idx], np.where(s[idx] < 1.0, 1.0, -1.0), kernel)
     return lam
+
+
+def _asymptote(g: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For ``sum(g) > 1`` far from 1: ``u = sum log(1 - g)``, the root of ``phi``'s left asymptote.
+
+    It is an outer point (``phi >= 0`` there), so Halley's iteration may
+    start from it; and when ``exp(u) * sum g / (1 - g)`` is tiny it is the
+    answer: ``phi(u) <= exp(u) sum g / (1 - g)``, so lambda moves by about
+    ``exp(2u) sum g / (1 - g)`` from ``expm1(u)`` (bounded here with
+    ``sum(g) / (1 - max g)``). Returns the start and, where accepted, lambda
+    (NaN elsewhere).
+    """
+    bound = s / (1.0 - np.max(g, axis=0))
+    with np.errstate(under="ignore"):
+        p = tree_prod(1.0 - g)
+    ok = p > 1e-300
+    u = np.where(ok, np.log(np.where(ok, p, 1.0)), _U_DEEP)
+    eu = np.exp(u)
+    accept = ok & (eu * bound <= 1e-2) & (eu * eu * bound <= 1e-13)
+    return u, np.where(accept, np.expm1(u), np.nan)
 
 
 def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray, near: np.ndarray) -> np.ndarray:
