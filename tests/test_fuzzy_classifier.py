@@ -210,3 +210,36 @@ def test_reasoning_methods_give_different_predictions(wine):
         seen_pred.add(fitted.predict(X).tobytes())
     assert len(seen_scores) == 5
     assert len(seen_pred) >= 2
+
+
+@pytest.mark.parametrize("reasoning,measure,tnorm", [
+    ("choquet", "power", "product"), ("choquet", "sugeno_lambda", "product"),
+    ("sugeno_integral", "cardinality", "product"), ("choquet_t", "power", "hamacher"),
+    ("choquet_t", "sugeno_lambda", "minimum"), ("choquet_t", "power", "lukasiewicz"),
+])
+def test_batched_fitness_equals_full_computation(wine, reasoning, measure, tnorm):
+    # the genetic stage's shortcuts (contested examples only, a batch in one call of the measures)
+    # must decide every example exactly as the full aggregation does (checked against rule_scores)
+    from workers.fuzzy.classifier import _Fitness, exponent_from_gene
+    from workers.fuzzy.genetic import penalized_fitness
+    from workers.fuzzy.partitions import memberships
+    from workers.fuzzy.reasoning import decide, rule_scores
+
+    X, y = wine
+    est = FuzzyRuleClassifier(reasoning=reasoning, measure=measure, tnorm=tnorm, evaluations=0).fit(X, y)
+    rules, p = est.rules_, est.partition_
+    n_disp = p.n_numeric_items
+    fitness = _Fitness(p, X, rules, y, 3, est, n_disp, learn_q=(measure == "power"))
+    rng = np.random.default_rng(0)
+    reals = rng.uniform(-0.5, 0.5, (12, n_disp + 3))
+    bits = rng.random((12, len(rules))) < 0.5
+    bits[0] = False
+    got = fitness(reals, bits)
+    for k in range(12):
+        sel = np.flatnonzero(bits[k])
+        M = memberships(p, X, reals[k, :n_disp])
+        scores = rule_scores(M, rules.items[sel], rules.classes[sel], rules.weight[sel], 3, reasoning, measure,
+                             exponent_from_gene(reals[k, n_disp:]), tnorm)
+        pred, uncovered = decide(scores, -1)
+        expected = penalized_fitness(np.mean((pred == y) & ~uncovered), len(rules), len(sel), est.penalty)
+        assert got[k] == pytest.approx(expected, abs=1e-15), k

@@ -232,8 +232,8 @@ def test_pcblx_stays_in_parent_centred_interval():
 
 def test_chc_solves_onemax_within_budget_deterministically():
     # OneMax is the textbook check that a GA optimises (common practice)
-    def f(real, bits):
-        return bits.mean() - np.abs(real).mean()
+    def f(reals, bits):
+        return bits.mean(axis=1) - np.abs(reals).mean(axis=1)
 
     a = chc(f, 3, 24, 20, 3000, np.random.default_rng(5))
     b = chc(f, 3, 24, 20, 3000, np.random.default_rng(5))
@@ -244,7 +244,7 @@ def test_chc_solves_onemax_within_budget_deterministically():
 
 def test_chc_restarts_when_population_stalls():
     # flat fitness: no offspring is ever strictly better, so L falls below 0 and CHC restarts
-    out = chc(lambda r, b: 0.0, 1, 4, 10, 500, np.random.default_rng(0))
+    out = chc(lambda r, b: np.zeros(len(r)), 1, 4, 10, 500, np.random.default_rng(0))
     assert out.restarts > 0 and out.evaluations == 500
 
 

@@ -14,7 +14,8 @@ from workers.fuzzy.genetic import chc, penalized_fitness
 from workers.fuzzy.mining import RuleSet, mine_rules
 from workers.fuzzy.partitions import FuzzyPartition, MembershipCache, build_partition, memberships
 from workers.fuzzy.prescreen import prescreen
-from workers.fuzzy.reasoning import INTEGRALS, MEASURES, METHODS, TNORMS, decide, matching_degrees, rule_scores
+from workers.fuzzy.reasoning import (INTEGRALS, MEASURES, METHODS, TNORMS, contested_part, cube_slots, decide, integrate,
+                                     matching_degrees, rule_scores, shortcut_applies)
 from workers.fuzzy.text import rule_base_text
 
 #: log10 of the power exponent q is 4 * gene: genes in [-0.5, 0.5) give q in [0.01, 100)
@@ -176,7 +177,8 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         fitness = _Fitness(self.partition_, X, screened, y, n_classes, self, n_disp, learn_q)
         if len(screened) == 0 or self.evaluations < 1:
             real, bits = np.zeros(n_disp + n_q), np.ones(len(screened), dtype=bool)
-            self.fitness_, self.n_evaluations_, self.n_restarts_ = fitness(real, bits), 0, 0
+            self.fitness_ = float(fitness(real[None], bits[None])[0])
+            self.n_evaluations_, self.n_restarts_ = 0, 0
         else:
             out = chc(fitness, n_disp + n_q, len(screened), self.population, self.evaluations,
                       _generator(self.random_state))
@@ -264,10 +266,14 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
 
 
 class _Fitness:
-    """Fitness of a chromosome (real part, bits) on the training part, vectorised over examples.
+    """Fitness of chromosomes (real part, bits) on the training part, vectorised over examples.
 
     Memberships are computed only for the items the prescreened rules use,
     and reused (:class:`MembershipCache`) while the real part is unchanged.
+    For the integral methods only the contested examples are aggregated
+    (:func:`~workers.fuzzy.reasoning.contested_part`), those of a whole batch
+    of chromosomes stacked into one call of the measures, so that their
+    per-call cost is paid once per generation.
     """
 
     def __init__(self, partition: FuzzyPartition, X: np.ndarray, rules: RuleSet, y: np.ndarray,
@@ -277,6 +283,10 @@ class _Fitness:
         remap = np.full(partition.pad + 1, len(used), dtype=np.intp)
         remap[used] = np.arange(len(used))
         self.items, self.classes, self.weight = remap[rules.items], rules.classes, rules.weight
+        if np.any(np.diff(self.classes) < 0):
+            raise AssertionError("prescreened rules must come class by class")
+        self.onehot = np.zeros((len(self.classes), n_classes))
+        self.onehot[np.arange(len(self.classes)), self.classes] = 1.0
         self.n_classes, self.est, self.n_disp, self.learn_q = n_classes, est, n_disp, learn_q
         self.fixed_q = est._exponents(np.zeros(0), n_classes) if est._uses_power() and not learn_q else None
         self.zero = np.zeros(partition.n_numeric_items)
@@ -284,20 +294,57 @@ class _Fitness:
         #: flat index of each example's true class in its row of scores
         self.true_slot = np.arange(self.n) * n_classes + y
 
-    def __call__(self, real: np.ndarray, bits: np.ndarray) -> float:
-        n0 = len(bits)
-        sel = np.flatnonzero(bits)
-        accuracy = 0.0
-        if len(sel):
-            M = self.cache(real[: self.n_disp] if self.n_disp else self.zero)
-            q = exponent_from_gene(real[self.n_disp:]) if self.learn_q else self.fixed_q
+    def __call__(self, reals: np.ndarray, bits: np.ndarray) -> np.ndarray:
+        """Fitness of a batch of chromosomes; the integrals of the whole batch in one call."""
+        est = self.est
+        shortcut = shortcut_applies(est.reasoning, est.tnorm)
+        accuracy = np.zeros(len(bits))
+        n_sel = bits.sum(axis=1)
+        pending = []
+        for k in np.flatnonzero(n_sel):
+            sel = np.flatnonzero(bits[k])
+            M = self.cache(reals[k, : self.n_disp] if self.n_disp else self.zero)
+            q = exponent_from_gene(reals[k, self.n_disp:]) if self.learn_q else self.fixed_q
+            args = (M, self.items[sel], self.classes[sel], self.weight[sel], self.n_classes)
+            if shortcut:
+                pending.append((k, q, sel, *contested_part(*args[:-1], self.onehot[sel])))
+            else:
+                accuracy[k] = self._accuracy(rule_scores(*args, est.reasoning, est.measure, q, est.tnorm))
+        if pending:
+            self._integrate(pending, accuracy)
+        return penalized_fitness(accuracy, bits.shape[1], n_sel, est.penalty)
+
+    def _integrate(self, pending: list, accuracy: np.ndarray) -> None:
+        """Stack the contested examples of the pending chromosomes and integrate them at once.
+
+        The stack is ``(chromosomes, examples, classes, rules)``, zero-padded
+        (a zero vector integrates to 0), so that ``n`` and ``q`` vary along
+        the first axis only and the measures compute their chain of set
+        measures once per chromosome and class, not once per example.
+        """
+        C = self.n_classes
+        rows = max(len(p[4]) for p in pending)
+        width = max(1, max(int(p[6].max()) for p in pending))
+        stacked = np.zeros((len(pending), rows, C * width))
+        n = np.empty((len(pending), 1, C))
+        q = np.ones((len(pending), 1, C))
+        for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
+            stacked[j, : len(idx)][:, cube_slots(self.classes[sel], counts, width)] = degrees.T
+            n[j, 0] = counts
+            if q_k is not None:
+                q[j, 0] = q_k
+        if rows:
             est = self.est
-            scores = rule_scores(M, self.items[sel], self.classes[sel], self.weight[sel], self.n_classes,
-                                 est.reasoning, est.measure, q, est.tnorm)
-            # a hit: the true class has the largest value and it is positive (uncovered = miss)
-            hit = (np.argmax(scores, axis=1) == self.y) & (scores.ravel()[self.true_slot] > 0)
-            accuracy = np.count_nonzero(hit) / self.n
-        return penalized_fitness(accuracy, n0, len(sel), self.est.penalty)
+            values = integrate(stacked.reshape(len(pending), rows, C, width), n, est.reasoning,
+                               est.measure, q, est.tnorm)
+        for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
+            scores[idx] = values[j, : len(idx)]
+            accuracy[k] = self._accuracy(scores)
+
+    def _accuracy(self, scores: np.ndarray) -> float:
+        # a hit: the true class has the largest value and it is positive (uncovered = miss)
+        hit = (np.argmax(scores, axis=1) == self.y) & (scores.ravel()[self.true_slot] > 0)
+        return np.count_nonzero(hit) / self.n
 
 
 def _scores(M: np.ndarray, rules: RuleSet, n_classes: int, est: FuzzyRuleClassifier,

@@ -70,7 +70,8 @@ class Outcome:
     generations: int
 
 
-FitnessFn = Callable[[np.ndarray, np.ndarray], float]
+#: ``fitness(reals (k, n_real), bits (k, n_bits)) -> (k,)``: a batch of chromosomes at once
+FitnessFn = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 
 def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluations: int,
@@ -80,8 +81,10 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
     Parameters
     ----------
     fitness : callable
-        ``fitness(real, bits) -> float`` for one chromosome (``real`` float
-        array of ``n_real`` genes in [-0.5, 0.5), ``bits`` bool array).
+        ``fitness(reals, bits) -> ndarray (k,)`` for a batch of k chromosomes
+        (``reals`` float ``(k, n_real)`` with genes in [-0.5, 0.5), ``bits``
+        bool ``(k, n_bits)``); a generation's offspring come in one batch, so
+        that the fitness can share work between them.
     n_real, n_bits : int
         Chromosome layout.
     population : int
@@ -98,7 +101,7 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
     budget = max(1, evaluations)
     size = min(pop, budget)
     real, bits = real[:size], bits[:size]
-    fit = np.array([fitness(real[i], bits[i]) for i in range(size)])
+    fit = np.asarray(fitness(real, bits), dtype=float)
     used = size
     threshold0 = (BITS_PER_GENE * n_real + n_bits) / 4.0
     threshold = threshold0
@@ -108,7 +111,7 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
         kids_real, kids_bits = _offspring(real, bits, threshold, rng)
         kids_real, kids_bits = kids_real[: budget - used], kids_bits[: budget - used]
         if len(kids_real):
-            kids_fit = np.array([fitness(kids_real[i], kids_bits[i]) for i in range(len(kids_real))])
+            kids_fit = np.asarray(fitness(kids_real, kids_bits), dtype=float)
             used += len(kids_real)
             real, bits, fit, new = _survive(real, bits, fit, kids_real, kids_bits, kids_fit, size)
         else:
@@ -176,7 +179,7 @@ def _restart(real, bits, fit, fitness, rng, used, budget):
     new_fit = np.full(size, -np.inf)
     new_fit[0] = fit[best]
     n_new = min(size - 1, budget - used)
-    for i in range(1, 1 + n_new):
-        new_fit[i] = fitness(new_real[i], new_bits[i])
+    if n_new > 0:
+        new_fit[1:1 + n_new] = fitness(new_real[1:1 + n_new], new_bits[1:1 + n_new])
     keep = np.arange(1 + n_new)
     return new_real[keep], new_bits[keep], new_fit[keep], used + n_new

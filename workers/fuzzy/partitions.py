@@ -176,7 +176,8 @@ class MembershipCache:
             self.hits += 1
             return found
         self.misses += 1
-        out = self._matrix.copy()
+        out = np.empty_like(self._matrix)
+        out[self._n_num:] = self._matrix[self._n_num:]  # crisp rows and padding never change
         head = out[: self._n_num]
         np.subtract(self._z, displacement[self._num_items][:, None], out=head)
         np.abs(head, out=head)

@@ -69,6 +69,58 @@ def rule_scores(M: np.ndarray, items: np.ndarray, rule_class: np.ndarray, weight
     return class_scores(match, rule_class, n_classes, method, measure, q, tnorm)
 
 
+def shortcut_applies(method: str, tnorm: str) -> bool:
+    """Whether :func:`contested_part` may stand in for the full aggregation (see there)."""
+    return method in INTEGRALS and not (method == "choquet_t" and tnorm == "lukasiewicz")
+
+
+def contested_part(M: np.ndarray, items: np.ndarray, rule_class: np.ndarray, weight: np.ndarray,
+                   onehot: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """What the genetic stage must still aggregate, for an integral method.
+
+    The genetic stage needs only each example's predicted class and whether
+    it is covered. Where the rules of one class alone fire, that class wins
+    whatever the integral, since the integrals of a non-zero vector of
+    degrees are positive; so only the examples where rules of two or more
+    classes fire ("contested") need the integrals, and the others keep their
+    additive scores. Not for the CT-integral with the Lukasiewicz t-norm,
+    which can be 0 for a non-zero vector (:func:`shortcut_applies`). A
+    vector whose integral underflows below 1e-300 is the one (theoretical)
+    case where the decision differs from the full computation's: it counts
+    as covered here.
+
+    Parameters
+    ----------
+    M, items, rule_class, weight
+        As for :func:`rule_scores`; ``rule_class`` must be non-decreasing.
+    onehot : ndarray (n_rules, n_classes)
+        ``onehot[r, rule_class[r]] = 1``.
+
+    Returns
+    -------
+    scores : ndarray (n_examples, n_classes)
+        Additive scores; rows ``contested`` are to be overwritten by the integrals.
+    contested : ndarray of int
+        Examples where two or more classes fire.
+    degrees : ndarray (n_rules, len(contested))
+        Their association degrees, to be laid out by :func:`cube_slots`.
+    counts : ndarray (n_classes,)
+        Rules per class (the measures' ``n``).
+    """
+    assoc = matching_degrees(M, items)
+    assoc *= weight[:, None]
+    scores = assoc.T @ onehot
+    # classes firing per example, by a product (count_nonzero along an axis is slower)
+    contested = np.flatnonzero((scores > 0).astype(float) @ np.ones(onehot.shape[1]) >= 2)
+    return scores, contested, assoc[:, contested], onehot.sum(axis=0).astype(np.intp)
+
+
+def cube_slots(rule_class: np.ndarray, counts: np.ndarray, width: int) -> np.ndarray:
+    """Column of each rule in a ``(..., n_classes * width)`` layout; ``rule_class`` non-decreasing."""
+    start = np.cumsum(counts) - counts
+    return rule_class * width + np.arange(len(rule_class)) - start[rule_class]
+
+
 def class_scores(assoc: np.ndarray, rule_class: np.ndarray, n_classes: int, method: str,
                  measure: str = "power", q: np.ndarray | float | None = None,
                  tnorm: str = "product") -> np.ndarray:
@@ -125,14 +177,25 @@ def padded_degrees(assoc: np.ndarray, rule_class: np.ndarray,
 
 
 def _integral(assoc, rule_class, n_classes, method, measure, q, tnorm):
+    cube, counts = padded_degrees(assoc, rule_class, n_classes)
+    return integrate(cube, counts, method, measure, 1.0 if q is None else q, tnorm)
+
+
+def integrate(cube: np.ndarray, n: np.ndarray, method: str, measure: str,
+              q: np.ndarray | float = 1.0, tnorm: str = "product") -> np.ndarray:
+    """The integral of each ``cube[..., c, :]`` by :mod:`workers.fuzzy.measures`.
+
+    ``n`` (rules per vector, zero-padded beyond) and ``q`` (power exponent)
+    broadcast to ``cube.shape[:-1]``: ``(n_classes,)`` for one rule base,
+    ``(rows, n_classes)`` for rows stacked from several.
+    """
     from workers.fuzzy import measures as fm
 
-    cube, counts = padded_degrees(assoc, rule_class, n_classes)
     params: dict = {}
     if measure in ("cardinality", "power"):
-        params["n"] = np.maximum(counts, 1)
+        params["n"] = np.maximum(n, 1)
     if measure == "power":
-        params["q"] = 1.0 if q is None else q  # scalar or (n_classes,): broadcast over examples
+        params["q"] = q
     if method == "choquet":
         return fm.choquet(cube, measure, **params)
     if method == "sugeno_integral":
