@@ -201,21 +201,20 @@ class Store:
 
     def _create(self) -> None:
         with self.engine.begin() as conn:
+            if conn.dialect.name == "postgresql":  # two drivers creating one store: one at a time
+                conn.exec_driver_sql("SELECT pg_advisory_xact_lock(2718281828)")
             metadata.create_all(conn)
-            conn.execute(sa.insert(meta_table), [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+            _insert_new(conn, meta_table, [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
 
     # ---- registering what a plan needs ----------------------------------------------------
 
     def record_sweep(self, name: str, spec_path: str, digest: str) -> None:
         now = time.time()
         with self.engine.begin() as conn:
-            row = conn.execute(sa.select(sweeps_table.c.name).where(sweeps_table.c.name == name)).first()
-            if row is None:
-                conn.execute(sa.insert(sweeps_table).values(name=name, spec_path=spec_path, spec_digest=digest,
-                                                            first_run=now, last_run=now))
-            else:
-                conn.execute(sa.update(sweeps_table).where(sweeps_table.c.name == name)
-                             .values(spec_path=spec_path, spec_digest=digest, last_run=now))
+            _insert_new(conn, sweeps_table, [dict(name=name, spec_path=spec_path, spec_digest=digest,
+                                                  first_run=now, last_run=now)])
+            conn.execute(sa.update(sweeps_table).where(sweeps_table.c.name == name)
+                         .values(spec_path=spec_path, spec_digest=digest, last_run=now))
 
     def sweep_fingerprints(self, sweep: str) -> dict[str, set[str]]:
         """Dataset name -> fingerprints this sweep has jobs for (to detect a changed dataset)."""
@@ -238,7 +237,7 @@ class Store:
             have = {r[0] for r in conn.execute(sa.select(table.c[key]))}
             new = [dict(r) for r in rows if r[key] not in have]
             if new:
-                conn.execute(sa.insert(table), new)
+                _insert_new(conn, table, new)
 
     def has_folds(self, scheme: str, fingerprint: str) -> bool:
         query = sa.select(sa.func.count()).select_from(folds_table).where(
@@ -251,7 +250,7 @@ class Store:
                      test_index=np.asarray(f.test_index, dtype="<i4").tobytes(), n_test=len(f.test_index),
                      missing_classes=json.dumps(list(f.missing_classes))) for f in folds]
         with self.engine.begin() as conn:
-            conn.execute(sa.insert(folds_table), rows)
+            _insert_new(conn, folds_table, rows)  # another driver may have just stored the same folds
 
     def load_folds(self, scheme: str, fingerprint: str) -> dict[tuple[int, int], np.ndarray]:
         """(repeat, fold) -> test indices, as stored."""
@@ -285,7 +284,7 @@ class Store:
                 others = self._keys_elsewhere(conn, [j.key for j in new])
                 new = [j for j in new if j.key not in others]
             for chunk in _chunks(new, 5000):
-                conn.execute(sa.insert(jobs_table), [
+                _insert_new(conn, jobs_table, [
                     dict(key=j.key, sweep=sweep, active=True, dataset=j.dataset, fingerprint=j.fingerprint,
                          config_id=j.config_id, scheme=scheme, repeat=j.repeat, fold=j.fold, state="pending",
                          attempts=0, queued_at=now, timed_out=False) for j in chunk])
@@ -454,6 +453,22 @@ def _result_row(r: Any) -> dict[str, Any]:
                 train_accuracy=r.train_accuracy, fit_seconds=r.fit_seconds, predict_seconds=r.predict_seconds,
                 figures=json.dumps(r.figures, sort_keys=True), model_text=r.model_text,
                 worker_version=r.worker_version, host=r.host, finished_at=r.finished_at)
+
+
+def _insert_new(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str, Any]]) -> None:
+    """Insert ``rows``, skipping those whose primary key is already stored.
+
+    Several drivers starting on one store register the same sweep, datasets,
+    folds and jobs at the same moment; the second must not fail on the first's rows.
+    """
+    if conn.dialect.name == "sqlite":
+        from sqlalchemy.dialects.sqlite import insert
+    elif conn.dialect.name == "postgresql":
+        from sqlalchemy.dialects.postgresql import insert
+    else:
+        conn.execute(sa.insert(table), list(rows))
+        return
+    conn.execute(insert(table).on_conflict_do_nothing(), list(rows))
 
 
 def _engine(url: str) -> sa.Engine:
