@@ -40,7 +40,6 @@ _U_MIN = -745.0  # exp underflows to 0 below: lambda == -1 in floating point
 _U_DEEP = -60.0  # a start on the outer side for sum(g) > 1: exp(-60) ~ 1e-26
 #: accept a step once Newton's error estimate for it is below this (relative, on lambda)
 ACCEPT = 1e-12
-_COMPACT = 0.75  # copy the unfinished rows out once fewer than this share remain
 
 
 def lambda_rows(g: np.ndarray, enough: np.ndarray | None = None,
@@ -140,56 +139,56 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
     """Safeguarded Halley iteration in ``w = sigma * u > 0`` (the root's side made positive).
 
     Halley's correction of the Newton step costs one more sum per
-    evaluation and makes convergence cubic. A row stops when the step
-    changes lambda by less than ``STEP_RTOL``, or when the step in ``u`` is
-    already small (below 1e-3 relative, so that the curvature at hand
-    describes the way to the root) and Newton's a posteriori error estimate
-    ``|phi'' / (2 phi')| step**2`` of the new point is below ``ACCEPT``
-    (relative, on lambda): that saves the confirming evaluation.
+    evaluation and makes convergence cubic. Each vector keeps its nearest
+    inner (``phi < 0``) and outer (``phi >= 0``) points; a step that would
+    leave them is replaced by bisection, or by expansion while no outer
+    point is known. A vector stops when the step changes lambda by less
+    than ``STEP_RTOL``, or when the step in ``u`` is already small (below
+    1e-3 relative, so that the curvature at hand describes the way to the
+    root) and Newton's a posteriori error estimate ``|phi'' / (2 phi')| step**2``
+    of the new point is below ``ACCEPT`` (relative, on lambda): that saves
+    the confirming evaluation. Finished vectors leave the arrays at once.
     """
-    rows = len(u)
+    cols = len(u)
     w_max = np.where(sigma > 0, _U_MAX, -_U_MIN)
     w = sigma * u
-    w_in = np.zeros(rows)  # inner points: phi < 0, between 0 and the root
-    w_out = np.full(rows, np.inf)  # outer points: phi >= 0
-    result = np.empty(rows)
-    where = np.arange(rows)  # original row of each row still in g
-    alive = np.ones(rows, dtype=bool)  # rows of g not yet converged
-    lam = np.expm1(sigma * w)
+    w_in = np.zeros(cols)  # inner points: phi < 0, between 0 and the root
+    w_out = np.full(cols, np.inf)  # outer points: phi >= 0
+    result = np.empty(cols)
+    where = np.arange(cols)  # original column of each column still in g
+    lam = np.expm1(u)
     for _ in range(MAX_ITER):
-        u = sigma * w
         phi, d1, d2 = kernel(g, lam, u)
         inner = phi < 0.0
-        w_in = np.where(inner, np.maximum(w_in, w), w_in)
-        w_out = np.where(inner, w_out, np.minimum(w_out, w))
+        np.maximum(w_in, w, out=w_in, where=inner)
+        np.minimum(w_out, w, out=w_out, where=~inner)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             newton = phi / d1
-            curv = np.minimum(newton * d2 / d1, 1.0)  # Halley: step / (1 - curv / 2), curv < 2 kept
+            curv = newton * d2
+            curv /= d1
+            np.minimum(curv, 1.0, out=curv)  # Halley: step / (1 - curv / 2), curv < 2 kept
             step = newton / (1.0 - 0.5 * curv)
             cand = w - sigma * step
-            est = np.abs(0.5 * d2 / d1) * step * step
-        ok = (cand > w_in) & (cand <= w_out)
-        cand = np.where(ok, cand, np.where(np.isfinite(w_out), 0.5 * (w_in + w_out), 4.0 * w))
-        cand = np.minimum(cand, w_max)
-        lam_new = np.expm1(sigma * cand)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            est_lam = est * np.abs((1.0 + lam_new) / lam_new)
+            ok = (cand > w_in) & (cand <= w_out)
+            if not ok.all():
+                bad = ~ok
+                cand[bad] = np.where(np.isfinite(w_out[bad]), 0.5 * (w_in[bad] + w_out[bad]), 4.0 * w[bad])
+            np.minimum(cand, w_max, out=cand)
+            u_new = sigma * cand
+            lam_new = np.expm1(u_new)
+            est = np.abs(0.5 * d2 / d1 * np.exp(u_new) / lam_new) * step * step
         change = np.abs(lam_new - lam)
-        close = ok & (np.abs(step) <= 1e-3 * np.maximum(np.abs(u), 1.0)) & (est_lam <= ACCEPT)
-        done = alive & ((change <= STEP_RTOL * np.abs(lam_new)) | (cand == w) | close)
-        result[where[done]] = lam_new[done]
-        alive &= ~done
-        n_alive = np.count_nonzero(alive)
-        if n_alive == 0:
-            return result
-        w = np.where(alive, cand, w)
-        lam = np.where(alive, lam_new, lam)
-        if n_alive < _COMPACT * len(alive):  # copy the unfinished rows out
-            keep = alive
-            g, where, w, lam = g[:, keep], where[keep], w[keep], lam[keep]
-            w_in, w_out, sigma, w_max = w_in[keep], w_out[keep], sigma[keep], w_max[keep]
-            alive = np.ones(n_alive, dtype=bool)
-    result[where[alive]] = lam[alive]  # not reached in practice: bisection bounds the count
+        done = (change <= STEP_RTOL * np.abs(lam_new)) | (cand == w)
+        done |= ok & (est <= ACCEPT) & (np.abs(step) <= 1e-3 * np.maximum(np.abs(u), 1.0))
+        if done.any():
+            result[where[done]] = lam_new[done]
+            keep = ~done
+            if not keep.any():
+                return result
+            g, where, w_in, w_out, sigma, w_max = g[:, keep], where[keep], w_in[keep], w_out[keep], sigma[keep], w_max[keep]
+            cand, u_new, lam_new = cand[keep], u_new[keep], lam_new[keep]
+        w, u, lam = cand, u_new, lam_new
+    result[where] = lam  # not reached in practice: bisection bounds the count
     return result
 
 
