@@ -1,6 +1,6 @@
 """One FARC-HD fold job at default parameters, timed per reasoning method, beside scikit-learn.
 
-Run: ``python benchmarks/bench_fuzzy.py [--all] [--evaluations N] [--profile]``
+Run: ``python benchmarks/bench_fuzzy.py [--all] [--evaluations N] [--profile] [--accuracy]``
 
 The problem: ``make_classification(n_samples=1000, n_features=8,
 n_informative=5, n_redundant=2, n_classes=3, random_state=0)``, the first
@@ -14,6 +14,11 @@ memory (an upper bound on every job's).
 Targets (issue 4): every reasoning method <= 20 s per fold job on one core;
 ``choquet`` + ``sugeno_lambda`` <= 3x ``additive``; peak memory <= 1 GiB.
 ``--profile`` writes a pyinstrument profile of each fuzzy fit as text.
+``--accuracy`` prints instead the accuracy table of the issue: mean
+stratified 5-fold accuracy (``StratifiedKFold(5, shuffle=True,
+random_state=0)``, the same folds for every row) of each reasoning method
+at default parameters on iris, wine and breast_cancer, beside
+``DecisionTreeClassifier(random_state=0)`` and a standardised 5-NN.
 """
 
 from __future__ import annotations
@@ -86,12 +91,46 @@ def time_sklearn(name: str, est, data: tuple) -> float:
     return seconds
 
 
+ACCURACY_ROWS = [("winning_rule", {"reasoning": "winning_rule"}), ("additive", {}),
+                 ("choquet+power", {"reasoning": "choquet"}),
+                 ("sugeno_integral+power", {"reasoning": "sugeno_integral"}),
+                 ("choquet_t(product)+power", {"reasoning": "choquet_t"}),
+                 ("choquet+sugeno_lambda", {"reasoning": "choquet", "measure": "sugeno_lambda"}),
+                 ("choquet+cardinality", {"reasoning": "choquet", "measure": "cardinality"})]
+
+
+def accuracy_table(evaluations: int) -> None:
+    """Print mean 5-fold accuracy per configuration and dataset (same folds for every row)."""
+    from sklearn.datasets import load_breast_cancer, load_iris, load_wine
+    from sklearn.model_selection import cross_val_score
+    from sklearn.neighbors import KNeighborsClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    sets = {"iris": load_iris, "wine": load_wine, "breast_cancer": load_breast_cancer}
+    data = {name: load(return_X_y=True) for name, load in sets.items()}
+    cv = StratifiedKFold(5, shuffle=True, random_state=0)
+    rows = [(name, FuzzyRuleClassifier(random_state=0, evaluations=evaluations, **p)) for name, p in ACCURACY_ROWS]
+    rows += [("DecisionTreeClassifier(random_state=0)", DecisionTreeClassifier(random_state=0)),
+             ("5-NN (standardised)", make_pipeline(StandardScaler(), KNeighborsClassifier()))]
+    print(f"{'configuration':40s}" + "".join(f"{name:>15s}" for name in sets) + "   seconds")
+    for label, est in rows:
+        start = time.perf_counter()
+        means = [cross_val_score(est, *data[name], cv=cv).mean() for name in sets]
+        print(f"{label:40s}" + "".join(f"{m:15.4f}" for m in means) + f"   {time.perf_counter() - start:7.1f}",
+              flush=True)
+
+
 def main(argv: list[str] | None = None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--all", action="store_true", help="also time the other reasoning methods")
     ap.add_argument("--evaluations", type=int, default=15000)
     ap.add_argument("--profile", action="store_true", help="write a pyinstrument profile per fuzzy fit")
+    ap.add_argument("--accuracy", action="store_true", help="print the accuracy table on iris, wine, breast_cancer")
     args = ap.parse_args(argv)
+    if args.accuracy:
+        accuracy_table(args.evaluations)
+        return
     data = fold()
     print(f"synthetic 1000 x 8, 3 classes; fold job: {len(data[1])} training rows; "
           f"evaluations={args.evaluations}, population=50; pid {os.getpid()}")

@@ -190,7 +190,10 @@ def test_prescreening_stops_when_patterns_removed():
     match = np.array([[1, 1, 0], [1, 0, 0]], dtype=float)
     in_class = np.array([True, True, False])
     assert list(prescreen_class(match, in_class, 1)) == [0]
-    assert list(prescreen(match, np.array([0, 0]), np.array([0, 0, 1]), 1)) == [0]
+    # the same through prescreen(): memberships of two items, rules "item 0" and "item 1"
+    M = np.vstack([match, np.ones(3)])
+    items = np.array([[0], [1]])
+    assert list(prescreen(M, items, np.array([0, 0]), np.array([0, 0, 1]), 1)) == [0]
 
 
 # ------------------------------------------------------------------ genetic stage
@@ -274,3 +277,14 @@ def test_padded_degrees_layout():
     # per class, the class's rules in rule-base order, zero-padded to the longest class
     np.testing.assert_allclose(cube[0], [[0.2, 0.5, 0.4], [0.6, 0.0, 0.0]])
     np.testing.assert_allclose(cube[1], [[0.0, 0.0, 0.0], [0.3, 0.1, 0.0]])
+
+
+def test_popcount_fallback_matches_python(monkeypatch):
+    # bin(v).count("1") is the reference popcount (Python built-in)
+    from workers.fuzzy import genetic
+
+    words = np.random.default_rng(0).integers(0, 2**62, 50).astype(np.uint64)
+    expected = [bin(int(v)).count("1") for v in words]
+    assert list(genetic._popcount(words)) == expected
+    monkeypatch.delattr(np, "bitwise_count")
+    assert list(genetic._popcount(words)) == expected

@@ -14,8 +14,8 @@ from workers.fuzzy.genetic import chc, penalized_fitness
 from workers.fuzzy.mining import RuleSet, mine_rules
 from workers.fuzzy.partitions import FuzzyPartition, MembershipCache, build_partition, memberships
 from workers.fuzzy.prescreen import prescreen
-from workers.fuzzy.reasoning import (INTEGRALS, MEASURES, METHODS, TNORMS, contested_part, cube_slots, decide, integrate,
-                                     matching_degrees, rule_scores, shortcut_applies)
+from workers.fuzzy.reasoning import (INTEGRALS, MEASURES, METHODS, TNORMS, contested_part, cube_slots, decide,
+                                     integrate, rule_scores, shortcut_applies)
 from workers.fuzzy.text import rule_base_text
 
 #: log10 of the power exponent q is 4 * gene: genes in [-0.5, 0.5) give q in [0.01, 100)
@@ -160,8 +160,7 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
                            self.min_confidence, self.depth, self.rule_weight)
         t_mine = lap()
-        screened = mined.take(prescreen(matching_degrees(M, mined.items), mined.classes, y_idx,
-                                        self.cover_limit))
+        screened = mined.take(prescreen(M, mined.items, mined.classes, y_idx, self.cover_limit))
         t_screen = lap()
         self.n_rules_mined_ = len(mined)
         self.n_rules_screened_ = len(screened)
@@ -317,28 +316,44 @@ class _Fitness:
     def _integrate(self, pending: list, accuracy: np.ndarray) -> None:
         """Stack the contested examples of the pending chromosomes and integrate them at once.
 
-        The stack is ``(chromosomes, examples, classes, rules)``, zero-padded
-        (a zero vector integrates to 0), so that ``n`` and ``q`` vary along
-        the first axis only and the measures compute their chain of set
-        measures once per chromosome and class, not once per example.
+        For the measures that take ``n`` and ``q`` the stack is
+        ``(chromosomes, examples, classes, rules)``, zero-padded (a zero
+        vector integrates to 0), so that ``n`` and ``q`` vary along the first
+        axis only and the measures compute their chain of set measures once
+        per chromosome and class, not once per example. The data-driven
+        Sugeno lambda measure has no such parameters: there the examples are
+        simply concatenated, ``(examples, classes, rules)``, without padding.
         """
         C = self.n_classes
-        rows = max(len(p[4]) for p in pending)
+        est = self.est
         width = max(1, max(int(p[6].max()) for p in pending))
-        stacked = np.zeros((len(pending), rows, C * width))
+        sizes = [len(p[4]) for p in pending]
+        flat = est.measure == "sugeno_lambda"
+        rows = max(sizes)
+        if flat:
+            at = np.cumsum([0] + sizes)
+            stacked = np.zeros((at[-1], C * width))
+        else:
+            stacked = np.zeros((len(pending), rows, C * width))
         n = np.empty((len(pending), 1, C))
         q = np.ones((len(pending), 1, C))
         for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
-            stacked[j, : len(idx)][:, cube_slots(self.classes[sel], counts, width)] = degrees.T
+            block = stacked[at[j]: at[j + 1]] if flat else stacked[j, : len(idx)]
+            block[:, cube_slots(self.classes[sel], counts, width)] = degrees.T
             n[j, 0] = counts
             if q_k is not None:
                 q[j, 0] = q_k
-        if rows:
-            est = self.est
+        if rows == 0:
+            values = None
+        elif flat:
+            values = integrate(stacked.reshape(-1, C, width), np.ones(C), est.reasoning, est.measure,
+                               1.0, est.tnorm)
+        else:
             values = integrate(stacked.reshape(len(pending), rows, C, width), n, est.reasoning,
                                est.measure, q, est.tnorm)
         for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
-            scores[idx] = values[j, : len(idx)]
+            if len(idx):
+                scores[idx] = values[at[j]: at[j + 1]] if flat else values[j, : len(idx)]
             accuracy[k] = self._accuracy(scores)
 
     def _accuracy(self, scores: np.ndarray) -> float:

@@ -52,9 +52,20 @@ def gray_code(real: np.ndarray) -> np.ndarray:
     return u ^ (u >> np.uint64(1))
 
 
+_BYTE_BITS = np.array([bin(i).count("1") for i in range(256)], dtype=np.int64)
+
+
+def _popcount(words: np.ndarray) -> np.ndarray:
+    """Set bits per uint64 (numpy >= 2 has ``bitwise_count``; a byte table otherwise)."""
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(words)
+    as_bytes = np.ascontiguousarray(words).view(np.uint8).reshape(words.shape + (8,))
+    return _BYTE_BITS[as_bytes].sum(axis=-1)
+
+
 def hamming(gray_a: np.ndarray, bits_a: np.ndarray, gray_b: np.ndarray, bits_b: np.ndarray) -> np.ndarray:
     """Hamming distance between chromosomes (last axis: genes), Gray-coded real part plus bits."""
-    real = np.bitwise_count(gray_a ^ gray_b).sum(axis=-1, dtype=np.int64)
+    real = _popcount(gray_a ^ gray_b).sum(axis=-1, dtype=np.int64)
     return real + (bits_a != bits_b).sum(axis=-1)
 
 

@@ -84,10 +84,18 @@ def prescreen_class(match: np.ndarray, in_class: np.ndarray, cover_limit: int,
     return np.asarray(chosen, dtype=np.intp)
 
 
-def prescreen(match: np.ndarray, classes: np.ndarray, y: np.ndarray, cover_limit: int) -> np.ndarray:
-    """Indices of the rules kept, class by class (each class in selection order)."""
+def prescreen(M: np.ndarray, items: np.ndarray, classes: np.ndarray, y: np.ndarray,
+              cover_limit: int) -> np.ndarray:
+    """Indices of the rules kept, class by class (each class in selection order).
+
+    ``M`` is the membership matrix and ``items`` the rules' padded
+    antecedents; matching degrees are formed one class at a time, which
+    bounds the memory by the largest class's candidates.
+    """
+    from workers.fuzzy.reasoning import matching_degrees
+
     kept = []
     for c in np.unique(classes):
         idx = np.flatnonzero(classes == c)
-        kept.append(idx[prescreen_class(match[idx], y == c, cover_limit)])
+        kept.append(idx[prescreen_class(matching_degrees(M, items[idx]), y == c, cover_limit)])
     return np.concatenate(kept) if kept else np.zeros(0, dtype=np.intp)
