@@ -90,7 +90,7 @@ def main() -> None:
         x = make_data(kind, args.rows, args.width, seed=1)
         (t_power, w_power) = best_of(lambda: choquet(x, "power", q=2.0), args.repeat)
         (t_lambda, w_lambda) = best_of(lambda: choquet(x, "sugeno_lambda"), args.repeat)
-        sub = x[: args.subset]
+        sub = x[: args.subset].copy()  # not a view: it would keep all of x alive
         t0 = time.process_time()
         ref = np.array([reference_choquet(v) for v in sub])
         t_ref = (time.process_time() - t0) * args.rows / args.subset

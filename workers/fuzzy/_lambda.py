@@ -9,9 +9,13 @@ trivial root), ``phi'(0) = sum(g) - 1`` and linear asymptotes on both sides.
 The wanted root is therefore the only other zero, on the side of 0 that
 the sign of ``1 - sum(g)`` gives, and Newton's method started anywhere on
 the far side of it ("outer" side, ``phi >= 0``) converges monotonically.
-The iteration below keeps, per vector, the nearest known inner point
-(``phi < 0``, starting at 0) and the nearest known outer point, and falls
-back to bisection or to expansion when a Newton step would leave them.
+The iteration below (Halley's: Newton's step with a curvature correction)
+keeps, per vector, the nearest known inner point (``phi < 0``, starting
+at 0) and the nearest known outer point, and falls back to bisection or to
+expansion when a step would leave them. Starts: the quadratic Taylor
+model's root near ``sum(g) = 1``, a root bound for ``sum(g) < 1``, and the
+root ``sum log(1 - g)`` of the left asymptote for ``sum(g) > 1`` (accepted
+outright when provably within 1e-13: the common case of many densities).
 
 ``phi`` is evaluated in one of two ways, chosen per vector:
 

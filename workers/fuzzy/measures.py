@@ -59,7 +59,19 @@ them: zeros take no part; with fewer than two positive densities lambda is 0
 densities: a data-driven Choquet integral of a vector with a single
 non-zero value c is ``c * c``); a density equal to 1 beside another
 positive one gives the limit lambda = -1 (``mu(A) = 1 - prod_A (1 - g)``);
-all densities 0 give every integral 0.
+all densities 0 give every integral 0. Because the data-driven measure
+moves with the data, its Choquet integral is not monotone in ``x`` for
+three or more values (adding a small value can lower the result); with
+two values it is (``C = a + (b - a) b`` for ``a <= b``).
+
+Performance
+-----------
+Values are sorted once per call along the last axis, in blocks of about
+2**18 elements. The cardinality-based measures have closed forms in
+``|A(i)| = n - i`` and the Choquet integral is one weighted sum. For the
+Sugeno lambda measure the integral is
+``sum_i x(i) g(i) prod_{j > i} (1 + lam g(j))``, reduced pairwise, and the
+lambdas of all vectors are solved together (:func:`sugeno_lambda`).
 
 Examples
 --------
