@@ -16,6 +16,10 @@ import os
 import time
 from typing import Any
 
+# imported here, when the worker is looked up, not inside a job: a first import of scikit-learn on a
+# loaded machine can take longer than a test's time limit, which then interrupts the import itself
+from sklearn.tree import DecisionTreeClassifier
+
 from workers.params import Param
 from workers.registry import Worker
 
@@ -24,13 +28,15 @@ FAILURE_MESSAGE = "planned failure for the tests"
 
 class _SlowTree:
     def __init__(self, params: dict[str, Any]) -> None:
-        from sklearn.tree import DecisionTreeClassifier
-
         self.params = params
         self.tree = DecisionTreeClassifier(max_depth=params["max_depth"], random_state=0)
 
     def fit(self, X: Any, y: Any) -> "_SlowTree":
-        time.sleep(self.params["delay"] + float(os.environ.get("FOLDSWEEP_TEST_DELAY", "0")))
+        # short sleeps in a Python loop: like a model's own Python code, a job time limit can stop it
+        # between them (one long C-level sleep could not be interrupted before it returns)
+        end = time.monotonic() + self.params["delay"] + float(os.environ.get("FOLDSWEEP_TEST_DELAY", "0"))
+        while time.monotonic() < end:
+            time.sleep(min(0.02, max(0.0, end - time.monotonic())))
         flag = self.params["fail_if_exists"]
         if flag and os.path.exists(flag):
             raise RuntimeError(FAILURE_MESSAGE)
