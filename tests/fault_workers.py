@@ -70,7 +70,7 @@ class _Faulty:
 def _report(estimator: _Faulty, X_test: Any) -> dict[str, Any]:
     # the last step of a job: reaching it means the job ran to completion
     _append("FOLDSWEEP_FAULT_LOG", f"{estimator.params['index']}:{estimator.digest}")
-    return {"figures": {"index": estimator.params["index"]},
+    return {"figures": {"labelled": float(estimator.params["index"])},
             "model_text": "m" * (1024 * estimator.params["text_kb"]) or None}
 
 
