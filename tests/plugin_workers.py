@@ -1,13 +1,16 @@
-"""Plug-in workers for the end-to-end tests, named in specs as ``"tests.plugin_workers:SLOW_TREE"``.
+"""Plug-in workers for the end-to-end tests, named in specs as ``"tests.plugin_workers:SLOW_CENTROID"``.
 
 Module level, so that loky worker processes import them by name.
 
-``SLOW_TREE`` is a decision tree that first sleeps: ``delay`` seconds (a
-parameter, part of the configuration) plus ``FOLDSWEEP_TEST_DELAY`` seconds
-(an environment variable, *not* part of the job key, so that a slow run and
-a quick reference run have the same keys and must give the same metrics).
-It raises ``RuntimeError`` when the file named by ``fail_if_exists`` exists,
-so that a test can make a job fail and then, once the file is gone, retry it.
+``SLOW_CENTROID`` is a nearest-centroid classifier on the first ``n_features``
+columns, written with numpy alone (no scikit-learn import, so that a fresh
+worker process starts quickly and no import falls inside a job's time limit).
+Before fitting it sleeps ``delay`` seconds (a parameter, part of the
+configuration) plus ``FOLDSWEEP_TEST_DELAY`` seconds (an environment
+variable, *not* part of the job key, so that a slow run and a quick
+reference run have the same keys and must give the same metrics). It raises
+``RuntimeError`` while the file named by ``fail_if_exists`` exists, so that a
+test can make a job fail and then, once the file is gone, retry it.
 """
 
 from __future__ import annotations
@@ -16,9 +19,7 @@ import os
 import time
 from typing import Any
 
-# imported here, when the worker is looked up, not inside a job: a first import of scikit-learn on a
-# loaded machine can take longer than a test's time limit, which then interrupts the import itself
-from sklearn.tree import DecisionTreeClassifier
+import numpy as np
 
 from workers.params import Param
 from workers.registry import Worker
@@ -26,12 +27,11 @@ from workers.registry import Worker
 FAILURE_MESSAGE = "planned failure for the tests"
 
 
-class _SlowTree:
+class _SlowCentroid:
     def __init__(self, params: dict[str, Any]) -> None:
         self.params = params
-        self.tree = DecisionTreeClassifier(max_depth=params["max_depth"], random_state=0)
 
-    def fit(self, X: Any, y: Any) -> "_SlowTree":
+    def fit(self, X: np.ndarray, y: np.ndarray) -> "_SlowCentroid":
         # short sleeps in a Python loop: like a model's own Python code, a job time limit can stop it
         # between them (one long C-level sleep could not be interrupted before it returns)
         end = time.monotonic() + self.params["delay"] + float(os.environ.get("FOLDSWEEP_TEST_DELAY", "0"))
@@ -40,18 +40,22 @@ class _SlowTree:
         flag = self.params["fail_if_exists"]
         if flag and os.path.exists(flag):
             raise RuntimeError(FAILURE_MESSAGE)
-        self.tree.fit(X, y)
+        X = X[:, : self.params["n_features"]]
+        self.classes_ = np.unique(y)
+        self.centroids_ = np.array([X[y == c].mean(axis=0) for c in self.classes_])
         return self
 
-    def predict(self, X: Any) -> Any:
-        return self.tree.predict(X)
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        X = X[:, : self.params["n_features"]]
+        distances = ((X[:, None, :] - self.centroids_[None, :, :]) ** 2).sum(axis=2)
+        return self.classes_[np.argmin(distances, axis=1)]
 
 
-SLOW_TREE = Worker(
-    name="slow_tree", version="1", build=lambda params, data: _SlowTree(params),
+SLOW_CENTROID = Worker(
+    name="slow_centroid", version="1", build=lambda params, data: _SlowCentroid(params),
     params={
-        "max_depth": Param("int", 3, low=1, high=50, doc="depth of the tree"),
+        "n_features": Param("int", 2, low=1, high=50, doc="leading feature columns used"),
         "delay": Param("float", 0.0, low=0.0, high=60.0, doc="seconds to sleep before fitting"),
-        "fail_if_exists": Param("str", "", doc="raise when this file exists"),
+        "fail_if_exists": Param("str", "", doc="raise while this file exists"),
     },
 )

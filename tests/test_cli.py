@@ -51,7 +51,7 @@ grid = { n_neighbors = [3, 5] }
 """
 DEMO_JOBS = 2 * 4 * 3
 
-#: the plug-in tree over iris and a synthetic set, 4 depths: 24 jobs
+#: the plug-in classifier over iris and a synthetic set, 4 feature counts: 24 jobs
 SLOW = """
 name = "cli-slow"
 [folds]
@@ -64,8 +64,8 @@ builtin = "iris"
 name = "synthetic"
 synthetic = { n_samples = 60, n_features = 4, n_informative = 2, n_classes = 2 }
 [[model]]
-worker = "tests.plugin_workers:SLOW_TREE"
-grid = { max_depth = [1, 2, 3, 4] }
+worker = "tests.plugin_workers:SLOW_CENTROID"
+grid = { n_features = [1, 2, 3, 4] }
 """
 SLOW_JOBS = 2 * 4 * 3
 
@@ -240,19 +240,19 @@ def test_kill_9_midway_then_resume_loses_and_duplicates_nothing(tmp_path: Path) 
 # ---- (4) growing a grid ---------------------------------------------------------------------
 
 def test_growing_a_grid_runs_only_the_new_cells(tmp_path: Path) -> None:
-    spec = write_spec(tmp_path, one_dataset("{ max_depth = [1, 2] }"))
+    spec = write_spec(tmp_path, one_dataset("{ n_features = [1, 2] }"))
     db = spec.with_suffix(".sqlite")
     rows = ("SELECT r.key, r.accuracy, r.finished_at, c.params FROM results r JOIN jobs j ON j.key = r.key "
             "JOIN configurations c ON c.config_id = j.config_id")
     assert run_json(spec, "--workers", "1")["ran"] == 2 * 3
     before = {key: rest for key, *rest in query(db, rows)}
 
-    spec.write_text(one_dataset("{ max_depth = [1, 2, 5] }"))
+    spec.write_text(one_dataset("{ n_features = [1, 2, 3] }"))
     summary = run_json(spec, "--workers", "1")
     assert summary["new"] == 3 and summary["ran"] == 3 and summary["planned"] == 3 * 3
     after = {key: rest for key, *rest in query(db, rows)}
     assert set(before) < set(after) and len(after) == 3 * 3
-    assert {json.loads(after[k][2])["max_depth"] for k in set(after) - set(before)} == {5}
+    assert {json.loads(after[k][2])["n_features"] for k in set(after) - set(before)} == {3}
     # the old jobs were not run again: same rows, same finishing times
     assert all(after[k] == before[k] for k in before)
 
@@ -358,7 +358,7 @@ k = 3
 name = "iris"
 builtin = "iris"
 [[model]]
-worker = "tests.plugin_workers:SLOW_TREE"
+worker = "tests.plugin_workers:SLOW_CENTROID"
 grid = {grid}
 """
 
