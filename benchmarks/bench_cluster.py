@@ -1,0 +1,101 @@
+"""Backends side by side in one run: the same 400 jobs of 50 ms of CPU each.
+
+1. ``foldsweep run --backend joblib --workers 2`` (loky worker processes);
+2. ``foldsweep run --backend dask --workers 2`` (an embedded LocalCluster: 2 processes over loopback TCP);
+3. two ``foldsweep run --workers 1`` drivers started together on one SQLite tracker.
+
+Each is timed as whole commands (fresh processes: interpreter, imports, pool or cluster start-up and
+shutdown included) and printed as a ratio to the ideal, total CPU work / workers = 400 x 0.05 / 2 = 10 s.
+The ``--json`` summary's own ``seconds`` (from the command's start to the end of its run) is shown too.
+Target (issue 6): each within 1.2x of the ideal on 2 cores.
+
+Run: ``python benchmarks/bench_cluster.py [--jobs 400] [--ms 50] [--workers 2]``
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import textwrap
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+HERE = Path(__file__).resolve().parent
+
+
+def env() -> dict[str, str]:
+    return {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), str(HERE)])}
+
+
+def write_spec(folder: Path, jobs: int, ms: float) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    spec = folder / "bench.toml"
+    spec.write_text(textwrap.dedent(f"""
+        name = "bench-cluster"
+        [folds]
+        k = 5
+        [[dataset]]
+        name = "iris"
+        builtin = "iris"
+        [[model]]
+        worker = "spin_worker:SPIN"
+        fixed = {{ ms = {ms} }}
+        grid = {{ index = {list(range(jobs // 5))} }}
+    """))
+    return spec
+
+
+def command(spec: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "sweep.cli", "run", str(spec), "--progress", "none", "--json", *extra]
+
+
+def timed(*commands: list[str]) -> tuple[float, list[dict[str, float]]]:
+    """Wall time of ``commands`` started together, and their summaries."""
+    t0 = time.perf_counter()
+    procs = [subprocess.Popen(c, env=env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+             for c in commands]
+    outs = []
+    for p in procs:
+        out, err = p.communicate()
+        if p.returncode != 0:
+            raise SystemExit(f"{' '.join(p.args)} failed:\n{err}")
+        outs.append(json.loads(out.strip().splitlines()[-1]))
+    return time.perf_counter() - t0, outs
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--jobs", type=int, default=400)
+    parser.add_argument("--ms", type=float, default=50.0)
+    parser.add_argument("--workers", type=int, default=2)
+    args = parser.parse_args()
+    ideal = args.jobs * args.ms / 1000 / args.workers
+    w = str(args.workers)
+    with tempfile.TemporaryDirectory(prefix="bench-cluster-") as tmp:
+        runs = {
+            "joblib": lambda spec: timed(command(spec, "--backend", "joblib", "--workers", w)),
+            "dask LocalCluster": lambda spec: timed(command(spec, "--backend", "dask", "--workers", w)),
+            f"{w} drivers, 1 SQLite": lambda spec: timed(*[command(spec, "--workers", "1")
+                                                          for _ in range(args.workers)]),
+        }
+        print(f"{args.jobs} jobs x {args.ms:g} ms CPU, {args.workers} workers: ideal {ideal:.2f} s "
+              f"(load average before: {os.getloadavg()[0]:.2f})")
+        print(f"{'backend':<22}{'wall s':>9}{'ratio':>8}{'run s':>9}{'ratio':>8}   jobs ran")
+        for i, (name, run) in enumerate(runs.items()):
+            spec = write_spec(Path(tmp) / f"run{i}", args.jobs, args.ms)
+            wall, summaries = run(spec)
+            inner = max(s["seconds"] for s in summaries)
+            ran = "+".join(str(s["ran"]) for s in summaries)
+            done = max(s["done"] for s in summaries)
+            assert done == args.jobs, f"{name}: {done} of {args.jobs} done"
+            print(f"{name:<22}{wall:>9.2f}{wall / ideal:>8.2f}{inner:>9.2f}{inner / ideal:>8.2f}   {ran}")
+        print("target: ratio <= 1.2 (wall: whole commands; run: the command's own start-to-end-of-run time)")
+
+
+if __name__ == "__main__":
+    main()
