@@ -109,8 +109,11 @@ def run_job(job: Job, data: Any) -> JobResult:
         if data.fingerprint != job.fingerprint:
             raise ValueError(f"dataset {job.dataset!r} has fingerprint {data.fingerprint}, "
                              f"the job expects {job.fingerprint}")
+        # built (and its libraries imported) before the clock starts: an import cut short by the
+        # limit is rolled back, so every later job in that process would import, and time out, again
+        estimator = worker.build(dict(job.params), data)
         with _time_limit(job.time_limit):
-            scores = _fit_and_score(worker, job, data)
+            scores = _fit_and_score(worker, estimator, job, data)
         return JobResult(ok=True, finished_at=time.time(), **base, **scores)
     except JobTimeout:
         return JobResult(ok=False, timed_out=True, error=f"timed out after {job.time_limit:g} s",
@@ -119,14 +122,13 @@ def run_job(job: Job, data: Any) -> JobResult:
         return JobResult(ok=False, error=traceback.format_exc(limit=20), finished_at=time.time(), **base)
 
 
-def _fit_and_score(worker: Any, job: Job, data: Any) -> dict[str, Any]:
+def _fit_and_score(worker: Any, estimator: Any, job: Job, data: Any) -> dict[str, Any]:
     from workers.metrics import accuracy, balanced_accuracy, kappa
 
     test = np.zeros(len(data.y), dtype=bool)
     test[job.test_index] = True
     X_train, y_train = data.X[~test], data.y[~test]
     X_test, y_test = data.X[test], data.y[test]
-    estimator = worker.build(dict(job.params), data)
     t0 = time.perf_counter()
     estimator.fit(X_train, y_train)
     fit_seconds = time.perf_counter() - t0
