@@ -5,7 +5,8 @@ Module level, so that loky worker processes import them by name.
 ``SLOW_CENTROID`` is a nearest-centroid classifier on the first ``n_features``
 columns, written with numpy alone (no scikit-learn import, so that a fresh
 worker process starts quickly and no import falls inside a job's time limit).
-Before fitting it sleeps ``delay`` seconds (a parameter, part of the
+Building it takes ``build_delay`` seconds (as a first import of a model's
+libraries can); before fitting it sleeps ``delay`` seconds (a parameter, part of the
 configuration) plus ``FOLDSWEEP_TEST_DELAY`` seconds (an environment
 variable, *not* part of the job key, so that a slow run and a quick
 reference run have the same keys and must give the same metrics). It raises
@@ -51,11 +52,17 @@ class _SlowCentroid:
         return self.classes_[np.argmin(distances, axis=1)]
 
 
+def _build(params: dict[str, Any], data: Any) -> _SlowCentroid:
+    time.sleep(params["build_delay"])  # stands in for a slow first import of a model's libraries
+    return _SlowCentroid(params)
+
+
 SLOW_CENTROID = Worker(
-    name="slow_centroid", version="1", build=lambda params, data: _SlowCentroid(params),
+    name="slow_centroid", version="1", build=_build,
     params={
         "n_features": Param("int", 2, low=1, high=50, doc="leading feature columns used"),
         "delay": Param("float", 0.0, low=0.0, high=60.0, doc="seconds to sleep before fitting"),
         "fail_if_exists": Param("str", "", doc="raise while this file exists"),
+        "build_delay": Param("float", 0.0, low=0.0, high=60.0, doc="seconds building the estimator takes"),
     },
 )
