@@ -243,3 +243,14 @@ def test_batched_fitness_equals_full_computation(wine, reasoning, measure, tnorm
         pred, uncovered = decide(scores, -1)
         expected = penalized_fitness(np.mean((pred == y) & ~uncovered), len(rules), len(sel), est.penalty)
         assert got[k] == pytest.approx(expected, abs=1e-15), k
+
+
+def test_ct_integral_with_product_is_choquet(wine):
+    # the CT-integral with the product t-norm is the Choquet integral (Lucca et al., IEEE TFS 24(2), 2016)
+    X, y = wine
+    est = FuzzyRuleClassifier(reasoning="choquet", power_exponent=2.0, **FAST).fit(X, y)
+    choquet = est.class_scores(X)
+    est.set_params(reasoning="choquet_t", tnorm="product")
+    np.testing.assert_allclose(est.class_scores(X), choquet, rtol=1e-12, atol=1e-15)
+    est.set_params(tnorm="minimum")
+    assert not np.allclose(est.class_scores(X), choquet)
