@@ -5,6 +5,8 @@ from __future__ import annotations
 import hashlib
 from pathlib import Path
 
+from hypothesis import given, settings, strategies as st
+
 from sweep.plan import config_id, job_key, make_plan
 from sweep.spec import load_spec
 from workers.registry import get_worker
@@ -143,3 +145,24 @@ def test_identical_blocks_share_configurations(tmp_path: Path) -> None:
                                        '[[model]]\nname = "b"\nworker = "knn"\ngrid = { n_neighbors = [5, 7] }'))
     assert sorted(c.params["n_neighbors"] for c in plan.configurations) == [3, 5, 7]
     assert len(plan.jobs) == 2 * 3 * 2 * 3
+
+
+@settings(max_examples=25, deadline=None)
+@given(depths=st.lists(st.integers(1, 30), min_size=1, max_size=4, unique=True),
+       leaves=st.lists(st.integers(1, 50), min_size=1, max_size=3, unique=True),
+       k=st.integers(2, 6), repeats=st.integers(1, 3))
+def test_count_and_growth_hold_for_any_grid(tmp_path_factory, depths, leaves, k, repeats) -> None:
+    # property: jobs = datasets x configurations x repeats x k, all keys distinct, and adding one value
+    # to a grid keeps every key and adds exactly the new cells' jobs (the issue's "done means")
+    folder = tmp_path_factory.mktemp("prop")
+    block = '[[model]]\nworker = "decision_tree"\ngrid = {{ max_depth = {}, min_samples_leaf = {} }}'
+    small = plan_of(folder, spec_text(block.format(depths, leaves), k=k, repeats=repeats), "a.toml")
+    assert len(small.jobs) == 2 * len(depths) * len(leaves) * repeats * k
+    assert len({j.key for j in small.jobs}) == len(small.jobs)
+    extra = max(depths) + 1
+    grown = plan_of(folder, spec_text(block.format(depths + [extra], leaves), k=k, repeats=repeats), "b.toml")
+    old = {j.key for j in small.jobs}
+    added = [j for j in grown.jobs if j.key not in old]
+    assert old <= {j.key for j in grown.jobs}
+    assert len(added) == 2 * len(leaves) * repeats * k
+    assert all(grown.by_config[j.config_id].params["max_depth"] == extra for j in added)
