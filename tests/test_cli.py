@@ -242,6 +242,7 @@ def test_kill_9_midway_then_resume_loses_and_duplicates_nothing(tmp_path: Path) 
 def test_growing_a_grid_runs_only_the_new_cells(tmp_path: Path) -> None:
     spec = write_spec(tmp_path, one_dataset("{ n_features = [1, 2] }"))
     db = spec.with_suffix(".sqlite")
+    assert counts(spec) == {"total": 6, "done": 0, "failed": 0, "pending": 6, "running": 0}  # before any run
     rows = ("SELECT r.key, r.accuracy, r.finished_at, c.params FROM results r JOIN jobs j ON j.key = r.key "
             "JOIN configurations c ON c.config_id = j.config_id")
     assert run_json(spec, "--workers", "1")["ran"] == 2 * 3
