@@ -71,3 +71,18 @@ def test_build_fit_and_report():
     text = out["model_text"]
     assert "colour IS green" in text and "THEN green" in text  # names from the dataset's categories and classes
     assert "petal_width IS" in text
+
+
+def test_one_fold_job_through_run_job():
+    # the worker as the pipeline runs it: registry name, canonical parameters, one fold of the dataset
+    from workers.job import Job, run_job
+
+    data = _dataset()
+    params = {name: param.default for name, param in FUZZY_RULES.params.items()}
+    params.update(evaluations=300, population=20, reasoning="choquet", measure="sugeno_lambda")
+    job = Job(key="k", worker="fuzzy_rules", params=params, dataset="toy", fingerprint=data.fingerprint,
+              repeat=0, fold=0, test_index=np.arange(70, 90))
+    result = run_job(job, data)
+    assert result.ok, result.error
+    assert result.accuracy > 0.7 and result.figures["rules_selected"] >= 1
+    assert result.model_text.startswith("IF ")
