@@ -221,7 +221,7 @@ def test_kill_9_midway_then_resume_loses_and_duplicates_nothing(tmp_path: Path) 
     finally:
         os.killpg(proc.pid, signal.SIGKILL)  # the driver and its worker processes, as kill -9 would
         proc.communicate(timeout=30)
-    assert proc.returncode == -signal.SIGKILL
+    assert proc.returncode == -signal.SIGKILL  # subprocess reports death by signal N as -N (Python docs)
     left = counts(spec)
     assert 4 <= left["done"] < SLOW_JOBS, left
     running_at_kill = left["running"]
@@ -420,7 +420,7 @@ def test_ctrl_c_keeps_finished_results_and_leaves_the_rest_pending(tmp_path: Pat
         if proc.poll() is None:
             os.killpg(proc.pid, signal.SIGKILL)
             proc.communicate()
-    assert proc.returncode == 130, (out, err)
+    assert proc.returncode == 130, (out, err)  # 128 + SIGINT: the shells' convention (common practice)
     assert "Traceback" not in err
     left = counts(spec)
     assert left["running"] == 0 and left["failed"] == 0
