@@ -43,20 +43,25 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: boo
     frame = frame.merge(table, on="config_id", how="left")
     extra: list[str] = []
     if figures:
-        frame, extra = _expand_figures(frame)
+        frame, extra = _expand_figures(frame, taken={*ID_COLUMNS, *params, *METRICS, "worker_version", "host"})
     ordered = [c for c in ID_COLUMNS if keys or c != "key"] + [*params, *METRICS, *extra, "worker_version", "host"]
     frame = frame[ordered].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
     return frame.reset_index(drop=True), params
 
 
-def _expand_figures(frame: Any) -> tuple[Any, list[str]]:
-    """Turn the JSON ``figures`` column into one column per figure (parsing each distinct text once)."""
+def _expand_figures(frame: Any, taken: set[str]) -> tuple[Any, list[str]]:
+    """Turn the JSON ``figures`` column into one column per figure (parsing each distinct text once).
+
+    A figure named like a parameter or a metric (a tree's ``depth`` beside the fuzzy worker's ``depth``
+    parameter) becomes ``figure_<name>``.
+    """
     import pandas as pd
 
     codes, texts = pd.factorize(frame.pop("figures"))
     parsed = pd.DataFrame([json.loads(t) if t else {} for t in texts])
     if parsed.empty or not len(parsed.columns):
         return frame, []
+    parsed = parsed.rename(columns={c: f"figure_{c}" for c in parsed.columns if c in taken})
     names = sorted(parsed.columns)
     expanded = parsed[names].take(codes).reset_index(drop=True)
     return pd.concat([frame.reset_index(drop=True), expanded], axis=1), names

@@ -244,8 +244,8 @@ class _Loop:
         for future in [f for f in self.inflight if f.done()]:
             self._collect(future)
         self._commit()
-        held = [c.key for c in self.inflight.values()] + [c.key for c in self.isolated]
-        self.store.release(self.owner, held)
+        # everything still held, including jobs claimed but not yet submitted when the signal came
+        self.store.release_all(self.owner)
         self.executor.close(kill=True)
 
     def _dispatch(self) -> None:

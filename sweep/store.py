@@ -357,6 +357,13 @@ class Store:
                                                          jobs_table.c.state == "running")
                              .values(lease_expires=expires))
 
+    def release_all(self, owner: str) -> None:
+        """Give back every job ``owner`` still holds, without counting an attempt (Ctrl-C)."""
+        with self.engine.begin() as conn:
+            conn.execute(sa.update(jobs_table).where(jobs_table.c.owner == owner, jobs_table.c.state == "running")
+                         .values(state="pending", owner=None, lease_expires=None,
+                                 attempts=sa.case((jobs_table.c.attempts > 0, jobs_table.c.attempts - 1), else_=0)))
+
     def release(self, owner: str, keys: Sequence[str], *, count_attempt: bool = False) -> None:
         """Give claimed jobs back (pending) without a result."""
         values: dict[str, Any] = dict(state="pending", owner=None, lease_expires=None)

@@ -31,7 +31,7 @@ def write_frame(frame: Any, fmt: str, out: str | None) -> None:
     elif fmt == "csv":
         data = frame.to_csv(index=False).encode()
     else:
-        data = frame.to_json(orient="records", lines=True).encode()
+        data = frame.to_json(orient="records", lines=True, double_precision=15).encode()
     if out is None:
         sys.stdout.flush()
         sys.stdout.buffer.write(data)

@@ -33,7 +33,7 @@ def _preprocessed(estimator: Any, data: Any, *, scale: bool) -> Any:
 
 def _tree_figures(estimator: Any, X_test: Any) -> dict[str, Any]:
     tree = estimator[-1] if hasattr(estimator, "steps") else estimator
-    return {"figures": {"leaves": tree.get_n_leaves(), "depth": tree.get_depth()}, "model_text": None}
+    return {"figures": {"tree_leaves": tree.get_n_leaves(), "tree_depth": tree.get_depth()}, "model_text": None}
 
 
 def _build(factory: Callable[[dict[str, Any]], Any], scale: bool) -> Callable[[dict[str, Any], Any], Any]:
