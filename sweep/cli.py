@@ -18,7 +18,7 @@ import sys
 import time
 from typing import Any, Sequence
 
-from sweep.errors import FoldsweepError, SchemaVersionError
+from sweep.errors import FoldsweepError, NoStoreYet
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
@@ -103,10 +103,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     failures: dict[str, int] = {}
     try:
         store = open_store(inputs.spec, create=False)
-    except SchemaVersionError:
-        raise  # a store that exists but is of another version is an error, not "not run yet"
-    except FoldsweepError:
-        store = None  # not run yet: everything is pending
+    except NoStoreYet:
+        store = None  # not run yet: everything is pending (and no file is created by asking)
     if store is not None:
         try:
             states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}

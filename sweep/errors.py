@@ -6,7 +6,8 @@
     ├── SpecError             a spec file that cannot be read or breaks the spec's rules
     ├── DatasetError          a dataset that is missing, malformed or unusable for the fold scheme
     ├── StoreError            the tracker cannot be opened or written
-    │   └── SchemaVersionError  a store written by another schema version
+    │   ├── SchemaVersionError  a store written by another schema version
+    │   └── NoStoreYet        no tracker yet at the spec's store (nothing has run)
     └── SelectionError        a configuration id or filter that matches nothing (reports)
 
 Every message names the file, the key and what is allowed, so that a user
@@ -34,6 +35,10 @@ class StoreError(FoldsweepError):
 
 class SchemaVersionError(StoreError):
     """A store written by another schema version."""
+
+
+class NoStoreYet(StoreError):
+    """The spec's store does not exist yet: the sweep has not run."""
 
 
 class SelectionError(FoldsweepError):

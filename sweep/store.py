@@ -35,7 +35,7 @@ import numpy as np
 import sqlalchemy as sa
 
 from results_schema import SCHEMA_VERSION
-from sweep.errors import SchemaVersionError, StoreError
+from sweep.errors import NoStoreYet, SchemaVersionError, StoreError
 
 JobState = Literal["pending", "running", "done", "failed"]
 STATES: tuple[JobState, ...] = ("pending", "running", "done", "failed")
@@ -155,13 +155,15 @@ class Store:
         A store of another schema version, or a database that is not a
         foldsweep store, is refused before anything is written.
         """
+        if not create and url.startswith("sqlite:///") and not os.path.exists(url[len("sqlite:///"):]):
+            raise NoStoreYet(f"{_where(url)}: no foldsweep store here yet (run the sweep first)")
         engine = _engine(url)
         store = cls(engine, url)
         try:
             version = store._schema_version()
             if version is None:
                 if not create:
-                    raise StoreError(f"{_where(url)}: no foldsweep store here (run the sweep first)")
+                    raise NoStoreYet(f"{_where(url)}: no foldsweep store here yet (run the sweep first)")
                 store._create()
             elif version != SCHEMA_VERSION:
                 raise SchemaVersionError(
