@@ -18,3 +18,15 @@ def test_sweep_exports() -> None:
 def test_workers_exports() -> None:
     assert set(workers.__all__) == {"Job", "JobResult", "run_job", "Param", "Worker", "get_worker", "worker_names"}
     assert all(hasattr(workers, name) for name in workers.__all__)
+
+
+def test_workers_do_not_import_the_tracker_or_the_run_loop() -> None:
+    # DESIGN.md: workers.* never import sweep.store or sweep.run (checked in a fresh interpreter)
+    import subprocess
+    import sys
+
+    code = ("import sys, workers, workers.job, workers.baselines, workers.fuzzy, workers.fuzzy.worker, "
+            "workers.fuzzy.measures; "
+            "print(sorted(m for m in ('sweep.store', 'sweep.run', 'sqlalchemy') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"
