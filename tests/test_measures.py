@@ -382,6 +382,40 @@ def test_data_driven_lambda_choquet_two_values_and_not_monotone_beyond():
     assert after < before - 0.03
 
 
+def test_data_driven_lambda_choquet_by_count_of_nonzero_values():
+    # vectors with 0 to 6 non-zero values in one call (the module groups them by that count and has
+    # closed forms up to 3) against the measure's definition (Sugeno, 1974) with lambda from
+    # scipy.optimize.brentq, through the generic (callable) path
+    rng = np.random.default_rng(21)
+    rows = []
+    for k in range(7):
+        for kind in range(5):
+            for _ in range(40):
+                v = np.zeros(6)
+                v[rng.permutation(6)[:k]] = random_densities(rng, k, kind) if k else []
+                rows.append(v)
+    x = np.array(rows)
+    x[5, :2] = [1.0, 0.3]  # a value 1 beside another: lam = -1
+    x[6, :3] = [1.0, 0.2, 0.2]
+    x[7, :3] = [0.4, 0.4, 0.4]  # ties
+    x[8, :3] = [0.2, 0.3, 0.5]  # sum exactly 1: additive
+    lam = np.zeros(len(x))
+    for i, v in enumerate(x):
+        g = v[v > 0]
+        if len(g) >= 2 and (g == 1).any():
+            lam[i] = -1.0
+        elif len(g) >= 2 and abs(g.sum() - 1) > 1e-12:
+            lam[i] = brentq_lambda(g)
+    ref = choquet(x, lambda_measure(x, lam))
+    got = choquet(x, "sugeno_lambda")
+    solved = [(v > 0).sum() >= 2 and abs(v.sum() - 1) > 1e-12 for v in x]
+    tol = np.array([1e-10 + (condition(v[v > 0]) if ok else 0.0) for v, ok in zip(x, solved)])
+    assert np.all(np.abs(got - ref) <= tol * np.maximum(np.abs(ref), 1e-300) + 1e-15)
+    two = np.sort(x[(x > 0).sum(axis=1) == 2], axis=1)[:, -2:]  # C = a + (b - a) b (hand algebra)
+    np.testing.assert_allclose(choquet(two, "sugeno_lambda"), two[:, 0] + np.diff(two, axis=1)[:, 0] * two[:, 1],
+                               rtol=1e-12, atol=1e-15)
+
+
 # --- zeros, padding and n= -------------------------------------------------------------------
 
 

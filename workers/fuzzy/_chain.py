@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 
 from sweep.errors import FoldsweepError
-from workers.fuzzy._lambda import lambda_columns, lambda_rows
+from workers.fuzzy._lambda import lambda_rows
 
 #: the named fuzzy measures
 MEASURES = ("cardinality", "power", "sugeno_lambda", "additive", "maximum", "minimum")
@@ -136,9 +136,3 @@ def lambda_of_rows(g: np.ndarray, sorted_rows: bool) -> np.ndarray:
         return lambda_rows(g, enough=g[:, -2] > 0, has_one=g[:, -1] == 1.0)
     return lambda_rows(g)
 
-
-def lambda_of_columns(gt: np.ndarray) -> np.ndarray:
-    """Sugeno lambda per column of ``gt`` (n, vectors), each column sorted ascending."""
-    if gt.shape[0] < 2:
-        return np.zeros(gt.shape[1])
-    return lambda_columns(gt, enough=gt[-2] > 0, has_one=gt[-1] == 1.0)

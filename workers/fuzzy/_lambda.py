@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from workers.fuzzy._trees import tree_expm1_prod, tree_prod
+from workers.fuzzy._trees import tree_expm1_prod, tree_prod, tree_weighted_suffix
 
 #: ``|sum(g) - 1|`` up to this is taken as ``sum(g) == 1``: lambda = 0
 SUM_TOL = 1e-12
@@ -99,23 +99,43 @@ def _solve(g: np.ndarray, s: np.ndarray, q: np.ndarray) -> np.ndarray:
 
 
 def _asymptote(g: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """For ``sum(g) > 1`` far from 1: ``u = sum log(1 - g)``, the root of ``phi``'s left asymptote.
+    """For ``sum(g) > 1`` far from 1: a start from ``u_a = sum log(1 - g)``, the root of ``phi``'s left asymptote.
 
-    It is an outer point (``phi >= 0`` there), so Halley's iteration may
-    start from it; and when ``exp(u) * sum g / (1 - g)`` is tiny it is the
-    answer: ``phi(u) <= exp(u) sum g / (1 - g)``, so lambda moves by about
-    ``exp(2u) sum g / (1 - g)`` from ``expm1(u)`` (bounded here with
-    ``sum(g) / (1 - max g)``). Returns the start and, where accepted, lambda
-    (NaN elsewhere).
+    With ``t = 1 + lambda``, ``p = prod(1 - g)`` and ``r = g / (1 - g)``
+    the equation reads ``t = p prod(1 + r t)``. When ``exp(u_a) = p`` is
+    tiny, ``u_a`` is the answer: ``phi(u_a) <= p sum(r)``, so lambda moves
+    by about ``p**2 sum(r)`` from ``expm1(u_a)``; accepted when that is
+    below 1e-13. Otherwise the start is the Lagrange inversion series of
+    ``t``, ``p + E1 p**2 + (E2 + E1**2) p**3`` (``E1``, ``E2`` the elementary
+    symmetric polynomials of ``r``; error of order ``p (E1 p)**3``, so that
+    one Halley step usually finishes), used while ``E1 p <= 0.1``
+    (:func:`_series`). Its
+    terms are positive, so it stays below the root's ``t``, on the outer
+    side (``phi >= 0``) like ``u_a``. Returns the start and, where
+    accepted, lambda (NaN elsewhere).
     """
-    bound = s / (1.0 - np.max(g, axis=0))
+    bound = s / (1.0 - np.max(g, axis=0))  # >= sum(r), cheaper: enough for the common acceptance
     with np.errstate(under="ignore"):
         p = tree_prod(1.0 - g)
     ok = p > 1e-300
     u = np.where(ok, np.log(np.where(ok, p, 1.0)), _U_DEEP)
     eu = np.exp(u)
     accept = ok & (eu * bound <= 1e-2) & (eu * eu * bound <= 1e-13)
-    return u, np.where(accept, np.expm1(u), np.nan)
+    lam = np.where(accept, np.expm1(u), np.nan)
+    rest = np.flatnonzero(ok & ~accept)
+    if rest.size:
+        u[rest] += _series(g if rest.size == len(s) else g[:, rest], eu[rest])
+    return u, lam
+
+
+def _series(g: np.ndarray, p: np.ndarray) -> np.ndarray:
+    """``log(t / p)`` for ``t`` the Lagrange series of :func:`_asymptote` where ``E1 p <= 0.1``, else 0."""
+    r = g / (1.0 - g)
+    e1 = np.add.reduce(r, axis=0)
+    r *= r
+    e2 = 0.5 * (e1 * e1 - np.add.reduce(r, axis=0))
+    x = e1 * p
+    return np.where(x <= 0.1, np.log1p(x + (e2 + e1 * e1) * p * p), 0.0)
 
 
 def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray, near: np.ndarray) -> np.ndarray:
@@ -236,3 +256,95 @@ def _derivatives(r1: np.ndarray, r2: np.ndarray, u: np.ndarray) -> tuple[np.ndar
     eu = np.exp(u)
     first = eu * r1
     return first - 1.0, first - eu * eu * r2
+
+
+# --- the data-driven Choquet integral (g = x), by the number of non-zero values --------------
+
+#: below this smallest value a 3-value vector goes to the iterative solver (its closed form would overflow)
+_TINY3 = 1e-100
+
+
+def data_driven_choquet(xt: np.ndarray) -> np.ndarray:
+    """Choquet integral of each column of ``xt`` (w, cols), sorted ascending, for ``mu`` the lambda measure of g = x.
+
+    Zeros take no part (in lambda nor in the integral), so a column is
+    worth only its ``k`` non-zero values, its last ``k`` rows. ``k <= 2``
+    have closed forms that need no lambda (``c * c``; ``a + (b - a) b``),
+    ``k = 3`` a closed-form lambda (the root of a quadratic); the other
+    columns go to the iterative solver together (one call: its cost is
+    mostly per call and per column), cut to the largest of their ``k``. In
+    fuzzy reasoning most vectors have at most three firing rules.
+    """
+    w, cols = xt.shape
+    out = np.zeros(cols)
+    if w == 0 or cols == 0:
+        return out
+    if w >= 4 and xt[0].all():  # no zeros (the smallest values are row 0): nothing to compact
+        out[:] = _iterated(xt)
+        return out
+    k = np.count_nonzero(xt, axis=0).astype(np.int16)  # a small integer type: argsort is a radix sort
+    order = np.argsort(k, kind="stable")
+    bounds = np.searchsorted(k[order], np.arange(w + 2))  # columns with k = j: order[bounds[j]:bounds[j+1]]
+    top = xt[-1]
+    for j, fn in ((1, _one), (2, _two), (3, _three)):
+        idx = order[bounds[j]:bounds[j + 1]] if j <= w else order[:0]
+        if idx.size:
+            out[idx] = fn(xt, idx, top)
+    rest = order[bounds[4]:] if w >= 4 else order[:0]
+    if rest.size:
+        width = int(k[rest[-1]])
+        sub = xt[w - width:]
+        out[rest] = _iterated(sub if rest.size == cols else np.take(sub, rest, axis=1))
+    return out
+
+
+def _one(xt: np.ndarray, idx: np.ndarray, top: np.ndarray) -> np.ndarray:
+    """One value c: lambda = 0 and ``mu({c}) = c``, the integral is ``c * c``."""
+    c = top[idx]
+    return c * c
+
+
+def _two(xt: np.ndarray, idx: np.ndarray, top: np.ndarray) -> np.ndarray:
+    """Two values ``a <= b``: ``mu({b}) = b`` whatever lambda (also -1 and 0), so ``a + (b - a) b``.
+
+    ``mu`` of both is 1, except where ``|a + b - 1| <= SUM_TOL`` is taken
+    as lambda = 0: there it is ``a + b``, as the iteration's convention has it.
+    """
+    a, b = xt[-2, idx], top[idx]
+    s = a + b
+    whole = np.where(np.abs(s - 1.0) <= SUM_TOL, s, 1.0)
+    return a * whole + (b - a) * b
+
+
+def _three(xt: np.ndarray, idx: np.ndarray, top: np.ndarray) -> np.ndarray:
+    """Three values ``a <= b <= c``: lambda solves ``e3 lam**2 + e2 lam + (s - 1) = 0``.
+
+    (``1 + lam = prod(1 + lam g)`` divided by ``lam``.) The wanted root is
+    ``-2 (s - 1) / (e2 + sqrt(e2**2 - 4 e3 (s - 1)))``, the form without
+    cancellation: for ``s < 1`` the positive root, for ``s > 1`` the one in
+    (-1, 0) (the other is below -1). The degenerate cases are those of
+    :func:`lambda_columns`. Vectors with a value below ``1e-100`` (whose
+    lambda may overflow) are solved by the iteration instead.
+    """
+    a, b, c = xt[-3, idx], xt[-2, idx], top[idx]
+    s = a + b + c
+    sm1 = s - 1.0
+    e2 = a * b + (a + b) * c
+    e3 = a * b * c
+    lam = -2.0 * sm1 / (e2 + np.sqrt(np.maximum(e2 * e2 - 4.0 * e3 * sm1, 0.0)))
+    lam[np.abs(sm1) <= SUM_TOL] = 0.0
+    lam[c == 1.0] = -1.0
+    tiny = a < _TINY3
+    if tiny.any():
+        lam[tiny] = lambda_columns(xt[-3:, idx[tiny]], np.ones(int(tiny.sum()), bool), c[tiny] == 1.0)
+    bc = 1.0 + lam * c
+    return (a * a * (1.0 + lam * b) + b * b) * bc + c * c
+
+
+def _iterated(gt: np.ndarray) -> np.ndarray:
+    """Lambda by the iteration, then ``sum_i x(i) g(i) prod_{j > i} (1 + lam g(j))`` (columns sorted)."""
+    lam = lambda_columns(gt, enough=gt[-2] > 0, has_one=gt[-1] == 1.0)
+    c = gt * gt
+    b = gt * lam
+    b += 1.0
+    return tree_weighted_suffix(c, b)

@@ -71,7 +71,10 @@ Values are sorted once per call along the last axis, in blocks of about
 ``|A(i)| = n - i`` and the Choquet integral is one weighted sum. For the
 Sugeno lambda measure the integral is
 ``sum_i x(i) g(i) prod_{j > i} (1 + lam g(j))``, reduced pairwise, and the
-lambdas of all vectors are solved together (:func:`sugeno_lambda`).
+lambdas of all vectors are solved together (:func:`sugeno_lambda`). The
+data-driven variant has closed forms for vectors with at most three
+non-zero values (the common case in fuzzy reasoning) and solves the others
+cut to their non-zero part (:func:`workers.fuzzy._lambda.data_driven_choquet`).
 
 Examples
 --------
@@ -94,11 +97,10 @@ from workers.fuzzy._chain import (
     cardinality_chain,
     check_params,
     lambda_chain,
-    lambda_of_columns,
     lambda_of_rows,
     weight_chain,
 )
-from workers.fuzzy._lambda import lambda_rows
+from workers.fuzzy._lambda import data_driven_choquet, lambda_rows
 from workers.fuzzy._trees import tree_weighted_suffix
 
 __all__ = [
@@ -277,10 +279,7 @@ class _Plan:
         if kind != "choquet":
             lam = lambda_of_rows(xs.reshape(-1, self.width), sorted_rows=True).reshape(xs.shape[:-1])
             return _from_chain(xs, lambda_chain(xs, lam), kind, tnorm)
-        xt = _columns(xs)
-        xt = xt[_zero_rows(xt):]  # zeros sort first and take no part: drop the all-zero ones
-        lam = lambda_of_columns(xt)
-        return _lambda_choquet(xt, xt, lam).reshape(xs.shape[:-1])
+        return data_driven_choquet(_columns(xs)).reshape(xs.shape[:-1])
 
 
 def _columns(a: np.ndarray) -> np.ndarray:
@@ -299,14 +298,6 @@ def _lambda_choquet(xt: np.ndarray, gt: np.ndarray, lam: np.ndarray) -> np.ndarr
     b = gt * lam
     b += 1.0
     return tree_weighted_suffix(c, b)
-
-
-def _zero_rows(xt: np.ndarray) -> int:
-    """How many leading rows of sorted columns are all zero (at most n - 1)."""
-    j = 0
-    while j < xt.shape[0] - 1 and not xt[j].any():
-        j += 1
-    return j
 
 
 def _increments_to_weights(chain: np.ndarray) -> np.ndarray:
