@@ -416,6 +416,25 @@ def test_data_driven_lambda_choquet_by_count_of_nonzero_values():
                                rtol=1e-12, atol=1e-15)
 
 
+def test_data_driven_lambda_choquet_on_mostly_single_values():
+    # the fuzzy-reasoning case: most vectors have at most one firing rule (integral c * c, lam = 0);
+    # oracle: the definition (Sugeno, 1974) with lambda from scipy.optimize.brentq, generic path
+    rng = np.random.default_rng(22)
+    x = np.zeros((600, 3, 4))
+    x[..., 0] = rng.random((600, 3)) * (rng.random((600, 3)) < 0.7)
+    x[::7, :, 1:] = rng.random((86, 3, 3))  # a few with 2 to 4 values
+    flat = x.reshape(-1, 4)
+    lam = np.array([brentq_lambda(v) if (v > 0).sum() >= 2 else 0.0 for v in flat])
+    ref = choquet(flat, lambda_measure(flat, lam)).reshape(600, 3)
+    np.testing.assert_allclose(choquet(x, "sugeno_lambda"), ref, rtol=1e-10, atol=1e-15)
+    np.testing.assert_allclose(choquet(x[::7], "sugeno_lambda"), ref[::7], rtol=1e-10, atol=1e-15)
+    for bad in (np.nan, 1.5, -0.1):  # bad values are refused whichever way the rows are sorted
+        y = x.copy()
+        y[3, 1, 2] = bad
+        with pytest.raises(MeasureError):
+            choquet(y, "sugeno_lambda")
+
+
 # --- zeros, padding and n= -------------------------------------------------------------------
 
 
