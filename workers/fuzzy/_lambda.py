@@ -187,9 +187,9 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
         np.maximum(w_in, w, out=w_in, where=inner)
         np.minimum(w_out, w, out=w_out, where=~inner)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            ratio = d2 / d1
             newton = phi / d1
-            curv = newton * d2
-            curv /= d1
+            curv = newton * ratio
             np.minimum(curv, 1.0, out=curv)  # Halley: step / (1 - curv / 2), curv < 2 kept
             step = newton / (1.0 - 0.5 * curv)
             cand = w - sigma * step
@@ -200,16 +200,18 @@ def _newton(g: np.ndarray, u: np.ndarray, sigma: np.ndarray, kernel) -> np.ndarr
             np.minimum(cand, w_max, out=cand)
             u_new = sigma * cand
             lam_new = np.expm1(u_new)
-            est = np.abs(0.5 * d2 / d1 * np.exp(u_new) / lam_new) * step * step
+            # the estimate needs few digits: 1 + lambda stands in for exp(u) (cheaper)
+            est = np.abs(0.5 * ratio * (1.0 + lam_new) / lam_new) * step * step
         change = np.abs(lam_new - lam)
         done = (change <= STEP_RTOL * np.abs(lam_new)) | (cand == w)
         done |= ok & (est <= ACCEPT) & (np.abs(step) <= 1e-3 * np.maximum(np.abs(u), 1.0))
         if done.any():
             result[where[done]] = lam_new[done]
-            keep = ~done
-            if not keep.any():
+            keep = np.flatnonzero(~done)  # integer indices: faster than a mask, above all for g
+            if not keep.size:
                 return result
-            g, where, w_in, w_out, sigma, w_max = g[:, keep], where[keep], w_in[keep], w_out[keep], sigma[keep], w_max[keep]
+            g = np.take(g, keep, axis=1)
+            where, w_in, w_out, sigma, w_max = where[keep], w_in[keep], w_out[keep], sigma[keep], w_max[keep]
             cand, u_new, lam_new = cand[keep], u_new[keep], lam_new[keep]
         w, u, lam = cand, u_new, lam_new
     result[where] = lam  # not reached in practice: bisection bounds the count
@@ -236,7 +238,7 @@ def _phi_far(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
     if not ok.all():  # under/overflow of the product: sum the logarithms instead
         bad = ~ok
         logp[bad] = np.log1p(g[:, bad] * lam[bad]).sum(axis=0)
-    return logp - u, *_derivatives(r1 / lam, r2 / (lam * lam), u)
+    return logp - u, *_derivatives(r1 / lam, r2 / (lam * lam), lam)
 
 
 def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
@@ -248,12 +250,16 @@ def _phi_near(g: np.ndarray, lam: np.ndarray, u: np.ndarray):
     r *= r
     r2 = np.add.reduce(r, axis=0)
     e = tree_expm1_prod(a)
-    return np.log1p(e) - u, *_derivatives(r1, r2, u)
+    return np.log1p(e) - u, *_derivatives(r1, r2, lam)
 
 
-def _derivatives(r1: np.ndarray, r2: np.ndarray, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``phi' = e^u sum r - 1`` and ``phi'' = e^u sum r - e^2u sum r**2``, ``r = g / (1 + lam g)``."""
-    eu = np.exp(u)
+def _derivatives(r1: np.ndarray, r2: np.ndarray, lam: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``phi' = e^u sum r - 1`` and ``phi'' = e^u sum r - e^2u sum r**2``, ``r = g / (1 + lam g)``.
+
+    ``e^u`` is taken as ``1 + lam`` (cheaper than ``exp``): its relative
+    error, up to ``eps / (1 + lam)``, changes the steps, not the root.
+    """
+    eu = 1.0 + lam
     first = eu * r1
     return first - 1.0, first - eu * eu * r2
 
@@ -272,7 +278,8 @@ def data_driven_choquet(xt: np.ndarray) -> np.ndarray:
     have closed forms that need no lambda (``c * c``; ``a + (b - a) b``),
     ``k = 3`` a closed-form lambda (the root of a quadratic); the other
     columns go to the iterative solver together (one call: its cost is
-    mostly per call and per column), cut to the largest of their ``k``. In
+    mostly per call and per column), cut to the largest of their ``k``
+    (and with the smaller columns too when they are few: no copy). In
     fuzzy reasoning most vectors have at most three firing rules.
     """
     w, cols = xt.shape
@@ -285,16 +292,18 @@ def data_driven_choquet(xt: np.ndarray) -> np.ndarray:
     k = np.count_nonzero(xt, axis=0).astype(np.int16)  # a small integer type: argsort is a radix sort
     order = np.argsort(k, kind="stable")
     bounds = np.searchsorted(k[order], np.arange(w + 2))  # columns with k = j: order[bounds[j]:bounds[j+1]]
+    rest = order[bounds[4]:] if w >= 4 else order[:0]
+    if rest.size:
+        sub = xt[w - int(k[rest[-1]]):]
+        if 2 * rest.size >= cols:  # most columns: all of them, rather than a copy of most
+            out[:] = _iterated(sub)  # the closed forms below overwrite the smaller columns
+        else:
+            out[rest] = _iterated(np.take(sub, rest, axis=1))
     top = xt[-1]
     for j, fn in ((1, _one), (2, _two), (3, _three)):
         idx = order[bounds[j]:bounds[j + 1]] if j <= w else order[:0]
         if idx.size:
             out[idx] = fn(xt, idx, top)
-    rest = order[bounds[4]:] if w >= 4 else order[:0]
-    if rest.size:
-        width = int(k[rest[-1]])
-        sub = xt[w - width:]
-        out[rest] = _iterated(sub if rest.size == cols else np.take(sub, rest, axis=1))
     return out
 
 
