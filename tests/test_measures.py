@@ -164,6 +164,16 @@ def test_lambda_degenerate_cases():
         assert f(zero[0], "sugeno_lambda", densities=np.zeros(4)) == 0.0
 
 
+def test_lambda_next_to_one_warns_not():
+    # found by hypothesis: a density one ulp below 1 beside a large one (s > 1 with
+    # (1 - s) / e2 < -1) made the start's unused s < 1 bound take log1p of less than -1;
+    # reference: scipy.optimize.brentq (pytest turns a warning into an error here)
+    g = np.array([0.9459950328088659, 0.9999999999999999])
+    ref = brentq_lambda(g)
+    assert sugeno_lambda(g) == pytest.approx(ref, rel=1e-10)
+    assert np.isfinite(choquet(g, "sugeno_lambda"))
+
+
 def test_lambda_of_two_densities_closed_form():
     # (1 + lam a)(1 + lam b) = 1 + lam  =>  lam = (1 - a - b) / (a b)  (hand algebra, common practice)
     a, b = np.meshgrid(np.linspace(0.05, 0.95, 19), np.linspace(0.05, 0.95, 19))

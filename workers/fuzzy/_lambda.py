@@ -154,7 +154,7 @@ def _start(s: np.ndarray, q: np.ndarray, v: np.ndarray, near: np.ndarray) -> np.
     with np.errstate(divide="ignore", over="ignore"):
         u = -2.0 * (s - 1.0) / v
         e2 = np.maximum(0.5 * (s * s - q), 1e-300)
-        cap = np.log1p(np.minimum((1.0 - s) / e2, 1e300))
+        cap = np.log1p(np.clip((1.0 - s) / e2, 0.0, 1e300))  # used for s < 1 only: no log1p(< -1) elsewhere
     u = np.where(s < 1.0, np.minimum(u, cap), np.where(near | (u > -2.0), u, _U_DEEP))
     return np.clip(u, _U_MIN, _U_MAX)
 
