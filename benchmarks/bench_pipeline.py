@@ -81,11 +81,12 @@ def replanning(folder: Path, done_jobs: int) -> tuple[float, float]:
     now = time.time()
     with store.engine.begin() as conn:  # mark everything done with a synthetic result row
         conn.execute(sa.update(jobs_table).values(state="done", finished_at=now))
-        keys = [k for (k,) in conn.execute(sa.select(jobs_table.c.key))]
+        j = jobs_table.c
+        jobs = conn.execute(sa.select(j.key, j.dataset, j.fingerprint, j.scheme, j.config_id, j.repeat, j.fold))
         conn.execute(sa.insert(results_table), [
-            dict(key=k, accuracy=0.5, balanced_accuracy=0.5, kappa=0.0, train_accuracy=0.5, fit_seconds=0.02,
+            dict(row._mapping, accuracy=0.5, balanced_accuracy=0.5, kappa=0.0, train_accuracy=0.5, fit_seconds=0.02,
                  predict_seconds=0.0, figures="{}", model_text=None, worker_version="1", host="bench",
-                 finished_at=now) for k in keys])
+                 finished_at=now) for row in jobs.all()])
     store.close()
     seconds, out = timed([sys.executable, "-m", "sweep.cli", "run", str(spec), "--json", "--progress", "none"])
     return json.loads(out)["planning_seconds"], seconds

@@ -70,6 +70,12 @@ CREATE TABLE sweeps (
 
 CREATE TABLE results (
 	"key" VARCHAR(40) NOT NULL, 
+	dataset VARCHAR(200) NOT NULL, 
+	fingerprint VARCHAR(32) NOT NULL, 
+	scheme VARCHAR(64) NOT NULL, 
+	config_id VARCHAR(32) NOT NULL, 
+	repeat INTEGER NOT NULL, 
+	fold INTEGER NOT NULL, 
 	accuracy FLOAT NOT NULL, 
 	balanced_accuracy FLOAT NOT NULL, 
 	kappa FLOAT NOT NULL, 

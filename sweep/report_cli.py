@@ -90,7 +90,8 @@ def _rank_options(parser: argparse.ArgumentParser) -> None:
 def _load(args: argparse.Namespace):
     from sweep.results import load_sweep_results
 
-    return load_sweep_results(args.spec)
+    metric = getattr(args, "metric", None)
+    return load_sweep_results(args.spec, metrics=[metric] if metric else None)
 
 
 def _emit(args: argparse.Namespace, text: str) -> None:

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Any
+from typing import Any, Sequence
 
 from sweep.run import Inputs, load_inputs, open_store
 
@@ -18,23 +18,30 @@ METRICS = ("accuracy", "balanced_accuracy", "kappa", "train_accuracy", "fit_seco
 ID_COLUMNS = ("key", "dataset", "config_id", "worker", "label", "repeat", "fold")
 
 
-def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: bool = True) -> tuple[Any, list[str]]:
+def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: bool = True,
+                  hosts: bool = True) -> tuple[Any, list[str]]:
     """(frame of the plan's finished jobs, parameter column names).
 
-    Parameter columns keep their declared types (object dtype where
-    configurations of several workers mix), so an integer stays an integer.
+    A job is the plan's when its dataset fingerprint, fold scheme, repeat,
+    fold, configuration and worker version are the plan's: what its key
+    hashes, so no key needs expanding. ``keys``, ``hosts`` (worker version and
+    host) and ``figures`` columns can be left out to read faster. Parameter
+    columns keep their declared types (object dtype), so an integer stays an integer.
     """
     import pandas as pd
 
     plan = inputs.plan
     configs = plan.configurations
-    # the plan's jobs, told apart by what their keys hash (no need to expand every key): the store
-    # selects by scheme, fingerprint, repeat and fold; configuration and worker version are checked here
-    rows, columns = store.done_results(inputs.spec.name, scheme=plan.scheme, fingerprints=[fp for _, fp in plan.datasets],
-                                       repeats=plan.repeats, k=plan.k, figures=figures, keys=keys)
+    version = {c.config_id: c.worker_version for c in configs}
+    where = dict(scheme=plan.scheme, fingerprints=[fp for _, fp in plan.datasets], repeats=plan.repeats, k=plan.k)
+    # results of a configuration under another worker version need the per-row version to be told apart
+    mixed = any(c in version and v != version[c] for c, v in store.versions(**where))
+    rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts or mixed)
     frame = pd.DataFrame.from_records(rows, columns=columns)
-    version = frame["config_id"].map({c.config_id: c.worker_version for c in configs})
-    frame = frame[version == frame["worker_version"]]
+    in_plan = frame["config_id"].map(version)
+    frame = frame[(in_plan == frame["worker_version"]) if mixed else in_plan.notna()]
+    if mixed and not hosts:
+        frame = frame.drop(columns=["worker_version", "host"])
     params = sorted({name for c in configs for name in c.params})
     table = pd.DataFrame({"config_id": [c.config_id for c in configs], "worker": [c.worker for c in configs],
                           "label": [c.label for c in configs],
@@ -44,7 +51,8 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: boo
     extra: list[str] = []
     if figures:
         frame, extra = _expand_figures(frame, taken={*ID_COLUMNS, *params, *METRICS, "worker_version", "host"})
-    ordered = [c for c in ID_COLUMNS if keys or c != "key"] + [*params, *METRICS, *extra, "worker_version", "host"]
+    ordered = ([c for c in ID_COLUMNS if keys or c != "key"] + [*params, *METRICS, *extra]
+               + (["worker_version", "host"] if hosts else []))
     frame = frame[ordered].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
     return frame.reset_index(drop=True), params
 
@@ -67,8 +75,12 @@ def _expand_figures(frame: Any, taken: set[str]) -> tuple[Any, list[str]]:
     return pd.concat([frame.reset_index(drop=True), expanded], axis=1), names
 
 
-def load_sweep_results(spec_path: str | Path) -> Any:
-    """The finished results of a sweep with its plan, for the report commands."""
+def load_sweep_results(spec_path: str | Path, metrics: Sequence[str] | None = None) -> Any:
+    """The finished results of a sweep with its plan, for the report commands.
+
+    ``metrics`` names the metrics the report needs; model size figures are
+    read only when one of them is a figure (or when ``metrics`` is None).
+    """
     import pandas as pd
 
     from sweep.report import SweepResults
@@ -76,7 +88,8 @@ def load_sweep_results(spec_path: str | Path) -> Any:
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec, create=False)
     try:
-        frame, params = results_frame(inputs, store, keys=False)
+        figures = metrics is None or any(m not in METRICS for m in metrics)
+        frame, params = results_frame(inputs, store, keys=False, hosts=False, figures=figures)
     finally:
         store.close()
     plan = inputs.plan

@@ -337,7 +337,7 @@ def test_cd_groups():
 @pytest.fixture()
 def cli(sweep_results, monkeypatch):
     fake = types.ModuleType("sweep.results")
-    fake.load_sweep_results = lambda spec: sweep_results
+    fake.load_sweep_results = lambda spec, metrics=None: sweep_results
     monkeypatch.setitem(sys.modules, "sweep.results", fake)
     parser = argparse.ArgumentParser(prog="foldsweep")
     report_cli.add_commands(parser.add_subparsers(dest="command", required=True))
@@ -378,7 +378,7 @@ def test_cli_commands_write_files(cli, capsys, tmp_path):
 
 def test_cli_bad_selection_is_exit_2(sweep_results, monkeypatch, capsys):
     fake = types.ModuleType("sweep.results")
-    fake.load_sweep_results = lambda spec: sweep_results
+    fake.load_sweep_results = lambda spec, metrics=None: sweep_results
     monkeypatch.setitem(sys.modules, "sweep.results", fake)
     from sweep.cli import main
 
