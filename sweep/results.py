@@ -19,13 +19,13 @@ ID_COLUMNS = ("key", "dataset", "config_id", "worker", "label", "repeat", "fold"
 
 
 def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: bool = True,
-                  hosts: bool = True) -> tuple[Any, list[str]]:
+                  hosts: bool = True, metrics: Sequence[str] = METRICS) -> tuple[Any, list[str]]:
     """(frame of the plan's finished jobs, parameter column names).
 
     A job is the plan's when its dataset fingerprint, fold scheme, repeat,
     fold, configuration and worker version are the plan's: what its key
     hashes, so no key needs expanding. ``keys``, ``hosts`` (worker version and
-    host) and ``figures`` columns can be left out to read faster. Parameter
+    host) and ``figures`` columns, and metrics not in ``metrics``, can be left out to read faster. Parameter
     columns keep their declared types (object dtype), so an integer stays an integer.
     """
     import pandas as pd
@@ -36,7 +36,8 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: boo
     where = dict(scheme=plan.scheme, fingerprints=[fp for _, fp in plan.datasets], repeats=plan.repeats, k=plan.k)
     # results of a configuration under another worker version need the per-row version to be told apart
     mixed = any(c in version and v != version[c] for c, v in store.versions(**where))
-    rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts or mixed)
+    rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts or mixed,
+                                       metrics=list(metrics))
     frame = pd.DataFrame.from_records(rows, columns=columns)
     in_plan = frame["config_id"].map(version)
     frame = frame[(in_plan == frame["worker_version"]) if mixed else in_plan.notna()]
@@ -51,7 +52,7 @@ def results_frame(inputs: Inputs, store: Any, *, figures: bool = True, keys: boo
     extra: list[str] = []
     if figures:
         frame, extra = _expand_figures(frame, taken={*ID_COLUMNS, *params, *METRICS, "worker_version", "host"})
-    ordered = ([c for c in ID_COLUMNS if keys or c != "key"] + [*params, *METRICS, *extra]
+    ordered = ([c for c in ID_COLUMNS if keys or c != "key"] + [*params, *metrics, *extra]
                + (["worker_version", "host"] if hosts else []))
     frame = frame[ordered].sort_values(["dataset", "config_id", "repeat", "fold"], kind="stable")
     return frame.reset_index(drop=True), params
@@ -89,7 +90,8 @@ def load_sweep_results(spec_path: str | Path, metrics: Sequence[str] | None = No
     store = open_store(inputs.spec, create=False)
     try:
         figures = metrics is None or any(m not in METRICS for m in metrics)
-        frame, params = results_frame(inputs, store, keys=False, hosts=False, figures=figures)
+        wanted = METRICS if metrics is None else [m for m in METRICS if m in metrics]
+        frame, params = results_frame(inputs, store, keys=False, hosts=False, figures=figures, metrics=wanted)
     finally:
         store.close()
     plan = inputs.plan

@@ -433,15 +433,17 @@ class Store:
             return [tuple(r) for r in conn.execute(query)]
 
     def done_results(self, *, scheme: str, fingerprints: Sequence[str], repeats: int, k: int,
-                     figures: bool = True, keys: bool = True, hosts: bool = True) -> tuple[list[tuple[Any, ...]], list[str]]:
+                     figures: bool = True, keys: bool = True, hosts: bool = True,
+                     metrics: Sequence[str] | None = None) -> tuple[list[tuple[Any, ...]], list[str]]:
         """(rows, column names) of the results on these datasets (fingerprints) and folds.
 
         One scan of the results table, no join. The caller keeps the rows of
         its plan's configurations (see ``versions``).
         """
         r = results_table.c
-        columns = [r.dataset, r.config_id, r.repeat, r.fold, r.accuracy, r.balanced_accuracy, r.kappa,
-                   r.train_accuracy, r.fit_seconds, r.predict_seconds]
+        names = metrics if metrics is not None else ("accuracy", "balanced_accuracy", "kappa", "train_accuracy",
+                                                     "fit_seconds", "predict_seconds")
+        columns = [r.dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in names)]
         columns = ([r.key] if keys else []) + columns + ([r.worker_version, r.host] if hosts else [])
         if figures:
             columns.append(r.figures)
