@@ -26,7 +26,7 @@ from typing import Any, Iterable
 
 from sweep.errors import StoreError
 from sweep.executors import Executor
-from workers.job import Job, run_job
+from workers.job import Job, run_jobs
 
 #: seconds to wait for a worker before scattering a dataset again
 WORKER_WAIT_SECONDS = 120
@@ -63,8 +63,9 @@ class DaskExecutor(Executor):
         self._shared[data.fingerprint] = (data, future)
         return future
 
-    def submit(self, job: Job, handle: Any) -> Any:
-        return self.client.submit(run_job, job, self._current(job.fingerprint, handle), pure=False, retries=0)
+    def submit(self, jobs: list[Job], handle: Any) -> Any:
+        return self.client.submit(run_jobs, jobs, self._current(jobs[0].fingerprint, handle), pure=False,
+                                  retries=0)
 
     def _current(self, fingerprint: str, handle: Any) -> Any:
         data, future = self._shared.get(fingerprint, (None, handle))

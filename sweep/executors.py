@@ -21,7 +21,7 @@ import shutil
 import tempfile
 from typing import Any, Callable, Iterable
 
-from workers.job import DataRef, Job, run_job
+from workers.job import DataRef, Job, run_jobs
 
 
 class Executor:
@@ -33,7 +33,8 @@ class Executor:
         """A handle for ``data`` that can be passed with every job cheaply."""
         return data
 
-    def submit(self, job: Job, handle: Any) -> Any:
+    def submit(self, jobs: list[Job], handle: Any) -> Any:
+        """A future of the list of results of ``jobs`` (one task; all on the dataset ``handle``)."""
         raise NotImplementedError
 
     def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
@@ -55,9 +56,9 @@ class Executor:
 class InProcessExecutor(Executor):
     """One job at a time in this process: the same code path, debuggable with pdb."""
 
-    def submit(self, job: Job, handle: Any) -> cf.Future[Any]:
+    def submit(self, jobs: list[Job], handle: Any) -> cf.Future[Any]:
         future: cf.Future[Any] = cf.Future()
-        future.set_result(run_job(job, handle))
+        future.set_result(run_jobs(jobs, handle))
         return future
 
 
@@ -78,12 +79,12 @@ class JoblibExecutor(Executor):
             pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
         return DataRef(path, data.fingerprint)
 
-    def submit(self, job: Job, handle: Any) -> cf.Future[Any]:
+    def submit(self, jobs: list[Job], handle: Any) -> cf.Future[Any]:
         try:
-            return self._pool.submit(run_job, job, handle)
+            return self._pool.submit(run_jobs, jobs, handle)
         except RuntimeError:  # a broken pool after a worker died: start a fresh one
             self._pool = self._get()
-            return self._pool.submit(run_job, job, handle)
+            return self._pool.submit(run_jobs, jobs, handle)
 
     def is_worker_death(self, exc: BaseException) -> bool:
         from joblib.externals.loky.process_executor import BrokenProcessPool

@@ -9,6 +9,10 @@
     submit to executor ─► wait for any ─► batch results ─► commit ──────┘
                                     (every second or 50 results, one transaction)
 
+Jobs that turn out to take milliseconds are sent several to a task (about
+``TASK_SECONDS`` of work each), so that the executor's per-task cost does not
+dominate; jobs of seconds go one to a task.
+
 Events and what they do: a job finished (its result joins the next commit),
 a job raised (recorded failed with its traceback), its worker process died
 (the job goes back to pending; after ``max_attempts`` deaths it is failed,
@@ -38,6 +42,9 @@ from sweep.store import Claimed, Store, owner_id
 LEASE_SECONDS = 60.0
 COMMIT_EVERY_SECONDS = 1.0
 COMMIT_EVERY_RESULTS = 50
+#: jobs shorter than this are sent several to a task, so that the executor's per-task cost stays small
+TASK_SECONDS = 0.25
+MAX_BATCH = 64
 
 
 @dataclass(frozen=True)
@@ -189,11 +196,12 @@ class _Loop:
         workers = options.workers or os.cpu_count() or 1
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
                                       memory_limit=self.spec.memory_limit, **options.executor_options)
-        self.window = options.claim or 4 * self.executor.workers
+        self.batch = 1  # jobs per task; grows when jobs turn out to be short
+        self.job_seconds: float | None = None
         self.configs = inputs.plan.by_config
         self.folds: dict[str, dict[tuple[int, int], Any]] = {}
         self.handles: dict[str, Any] = {}
-        self.inflight: dict[Any, Claimed] = {}
+        self.inflight: dict[Any, list[Claimed]] = {}
         self.isolated: list[Claimed] = []
         self.finished: list[Any] = []
         self.give_up: dict[str, str] = {}
@@ -221,7 +229,8 @@ class _Loop:
                     self._commit()
                     last_commit = now
                 if now - last_renew >= self.options.lease_seconds / 3:
-                    self.store.renew(self.owner, [c.key for c in self.inflight.values()], self.options.lease_seconds)
+                    self.store.renew(self.owner, [c.key for batch in self.inflight.values() for c in batch],
+                                     self.options.lease_seconds)
                     self._requeue_stale()
                     last_renew = now
             self._commit()
@@ -248,44 +257,65 @@ class _Loop:
         self.store.release_all(self.owner)
         self.executor.close(kill=True)
 
+    @property
+    def window(self) -> int:
+        """Jobs to hold at once: ``--claim``, else four tasks per worker."""
+        return self.options.claim or 4 * self.executor.workers * self.batch
+
     def _dispatch(self) -> None:
-        if any(c.attempts > 1 for c in self.inflight.values()):
+        held = [c for batch in self.inflight.values() for c in batch]
+        if any(c.attempts > 1 for c in held):
             return  # a job retried after a worker death runs alone
-        if not self.isolated and not self.exhausted and len(self.inflight) <= self.window // 2:
-            claimed = self.store.claim(self.spec.name, self.owner, self.window - len(self.inflight),
+        if not self.isolated and not self.exhausted and len(held) <= self.window // 2:
+            claimed = self.store.claim(self.spec.name, self.owner, self.window - len(held),
                                        self.options.lease_seconds, self.spec.max_attempts)
             self.exhausted = not claimed
             self.isolated.extend(c for c in claimed if c.attempts > 1)
-            for c in claimed:
-                if c.attempts == 1:
-                    self._submit(c)
+            for batch in self._batches([c for c in claimed if c.attempts == 1]):
+                self._submit(batch)
         if self.isolated and not self.inflight:
-            self._submit(self.isolated.pop(0))
+            self._submit([self.isolated.pop(0)])
 
-    def _submit(self, claimed: Claimed) -> None:
+    def _batches(self, claimed: list[Claimed]) -> list[list[Claimed]]:
+        """Tasks of up to ``self.batch`` jobs, each on one dataset."""
+        by_data: dict[str, list[Claimed]] = {}
+        for c in claimed:
+            by_data.setdefault(c.fingerprint, []).append(c)
+        return [group[i:i + self.batch] for group in by_data.values() for i in range(0, len(group), self.batch)]
+
+    def _submit(self, batch: list[Claimed]) -> None:
         from workers.job import Job
 
-        config = self.configs[claimed.config_id]
-        fp = claimed.fingerprint
+        fp = batch[0].fingerprint
         if fp not in self.folds:
             self.folds[fp] = self.store.load_folds(self.inputs.plan.scheme, fp)
-            self.handles[fp] = self.executor.share(self.inputs.datasets[claimed.dataset])
-        job = Job(key=claimed.key, worker=config.worker, params=dict(config.params), dataset=claimed.dataset,
-                  fingerprint=fp, repeat=claimed.repeat, fold=claimed.fold,
-                  test_index=self.folds[fp][(claimed.repeat, claimed.fold)], time_limit=self.spec.time_limit)
-        self.inflight[self.executor.submit(job, self.handles[fp])] = claimed
+            self.handles[fp] = self.executor.share(self.inputs.datasets[batch[0].dataset])
+        jobs = []
+        for c in batch:
+            config = self.configs[c.config_id]
+            jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
+                            fingerprint=fp, repeat=c.repeat, fold=c.fold,
+                            test_index=self.folds[fp][(c.repeat, c.fold)], time_limit=self.spec.time_limit))
+        self.inflight[self.executor.submit(jobs, self.handles[fp])] = batch
 
     def _collect(self, future: Any) -> None:
-        claimed = self.inflight.pop(future)
+        batch = self.inflight.pop(future)
         try:
-            result = future.result()
+            results = future.result()
         except BaseException as exc:  # noqa: BLE001 - the worker died or the engine lost the task
             if not self.executor.is_worker_death(exc) and not isinstance(exc, Exception):
                 raise
-            self._worker_died(claimed, exc)
+            for claimed in batch:
+                self._worker_died(claimed, exc)
             return
-        self.finished.append(result)
-        self.ran += 1
+        self.finished.extend(results)
+        self.ran += len(results)
+        self._learn_batch(results)
+
+    def _learn_batch(self, results: list[Any]) -> None:
+        seconds = sum(r.finished_at - r.started_at for r in results) / len(results)
+        self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
+        self.batch = max(1, min(MAX_BATCH, int(TASK_SECONDS / max(self.job_seconds, 1e-4))))
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
         reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"
@@ -309,6 +339,6 @@ def _death_message(exc: BaseException) -> str:
     """The first sentence of a worker-death error, without the engine's task names and addresses,
     so that ``status`` groups the failures of one cause under one message."""
     text = " ".join(str(exc).split())
-    text = re.sub(r"'[\w.-]+-[0-9a-f]{32}'|'run_job-[0-9a-f-]+'", "the job", text)
+    text = re.sub(r"'[\w.-]+-[0-9a-f]{32}'|'run_jobs?-[0-9a-f-]+'", "the job", text)
     first = re.split(r"(?<=[.!?])\s", text, maxsplit=1)[0]
     return first[:200]

@@ -99,7 +99,7 @@ class _Counter:
 
         class _Finished(SchedulerPlugin):
             def transition(self, key: Any, start: str, finish: str, *args: Any, **kwargs: Any) -> None:
-                if finish == "memory" and str(key).startswith("run_job-"):
+                if finish == "memory" and str(key).startswith("run_jobs-"):
                     counter.jobs_done += 1
 
         scheduler.add_plugin(_Finished(), name="foldsweep-test-counter")
@@ -117,7 +117,9 @@ def test_existing_scheduler_runs_the_jobs_and_receives_each_dataset_once(
         assert address.startswith("tcp://127.0.0.1:")
         spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address)
         assert (summary["done"], summary["failed"], summary["ran"]) == (JOBS, 0, JOBS)
-        assert counter.jobs_done == JOBS  # every fold job ran on this cluster
+        # every fold job ran on this cluster: the driver has no other executor, and the tasks it sent
+        # (one or more jobs each: jobs of milliseconds are batched) all finished there
+        assert 1 <= counter.jobs_done <= JOBS
         assert counter.scatters == DATASETS  # one scatter per dataset, not one per job
         assert len(counter.scattered_keys) == DATASETS
     assert _rows(spec) == joblib_rows

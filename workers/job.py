@@ -122,6 +122,12 @@ def run_job(job: Job, data: Any) -> JobResult:
         return JobResult(ok=False, error=traceback.format_exc(limit=20), finished_at=time.time(), **base)
 
 
+def run_jobs(jobs: list[Job], data: Any) -> list[JobResult]:
+    """Run several short jobs on the same dataset in one task (the run loop batches jobs of
+    milliseconds, so that the per-task cost of the executor does not dominate); never raises."""
+    return [run_job(job, data) for job in jobs]
+
+
 def _fit_and_score(worker: Any, estimator: Any, job: Job, data: Any) -> dict[str, Any]:
     from workers.metrics import accuracy, balanced_accuracy, kappa
 
