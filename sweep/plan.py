@@ -16,7 +16,7 @@ import itertools
 import json
 from dataclasses import dataclass
 from functools import cached_property
-from typing import Any, Mapping
+from typing import Any, Mapping, NamedTuple
 
 from sweep.errors import SpecError
 from sweep.spec import ModelBlock, Spec
@@ -34,11 +34,12 @@ class Configuration:
     label: str
     #: complete canonical parameters, sorted by name
     params: Mapping[str, Any]
+    #: their canonical JSON text (what the id hashes, and what the tracker stores)
+    canonical: str = ""
 
 
-@dataclass(frozen=True)
-class PlannedJob:
-    """One (dataset, configuration, repeat, fold) and its key."""
+class PlannedJob(NamedTuple):
+    """One (dataset, configuration, repeat, fold) and its key (a named tuple: plans hold ~10^5 of them)."""
 
     key: str
     dataset: str
@@ -81,9 +82,9 @@ def canonical_json(params: Mapping[str, Any]) -> str:
     return json.dumps(dict(params), sort_keys=True, separators=(",", ":"))
 
 
-def config_id(worker: str, params: Mapping[str, Any]) -> str:
+def config_id(worker: str, params: Mapping[str, Any], canonical: str | None = None) -> str:
     """Short stable id of a configuration: worker name + complete parameters."""
-    text = worker + "|" + canonical_json(params)
+    text = worker + "|" + (canonical if canonical is not None else canonical_json(params))
     return hashlib.sha256(text.encode()).hexdigest()[:10]
 
 
@@ -107,8 +108,9 @@ def expand_block(block: ModelBlock, declared: Mapping[str, Any], version: str) -
             if not _matches(condition, point):
                 point[target] = block.fixed.get(target, declared[target].default)
         params = dict(sorted(point.items()))
-        cid = config_id(block.worker, params)
-        seen.setdefault(cid, Configuration(cid, block.worker, version, block.label, params))
+        text = canonical_json(params)
+        cid = config_id(block.worker, params, text)
+        seen.setdefault(cid, Configuration(cid, block.worker, version, block.label, params, text))
     return list(seen.values())
 
 

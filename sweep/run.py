@@ -117,8 +117,7 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     store.record_datasets([dict(fingerprint=d.fingerprint, name=d.name, source=d.source, n_samples=d.n_samples,
                                 n_features=d.n_features, class_counts=json.dumps(d.class_counts.tolist()))
                            for d in inputs.datasets.values()])
-    store.record_configurations([dict(config_id=c.config_id, worker=c.worker, label=c.label,
-                                      params=json.dumps(dict(c.params), sort_keys=True))
+    store.record_configurations([dict(config_id=c.config_id, worker=c.worker, label=c.label, params=c.canonical)
                                  for c in plan.configurations])
     for data in inputs.datasets.values():
         if not store.has_folds(plan.scheme, data.fingerprint):

@@ -244,7 +244,7 @@ class Store:
 
     def _insert_missing(self, table: sa.Table, key: str, rows: Sequence[Mapping[str, Any]]) -> None:
         with self.engine.begin() as conn:
-            have = {r[0] for r in conn.execute(sa.select(table.c[key]))}
+            have = {r[0] for r in conn.execute(sa.select(table.c[key])).cursor.fetchall()}
             new = [dict(r) for r in rows if r[key] not in have]
             if new:
                 _insert_new(conn, table, new)
@@ -287,7 +287,7 @@ class Store:
         wanted = {j.key: j for j in planned}
         with self.engine.begin() as conn:
             have = dict(conn.execute(sa.select(jobs_table.c.key, jobs_table.c.active)
-                                     .where(jobs_table.c.sweep == sweep)).all())
+                                     .where(jobs_table.c.sweep == sweep)).cursor.fetchall())
             new = [j for k, j in wanted.items() if k not in have]
             other_sweeps = conn.execute(sa.select(jobs_table.c.key).where(jobs_table.c.sweep != sweep).limit(1)).first()
             if new and other_sweeps:  # a store shared by several specs: a key already planned elsewhere is theirs
