@@ -30,3 +30,16 @@ def test_workers_do_not_import_the_tracker_or_the_run_loop() -> None:
             "print(sorted(m for m in ('sweep.store', 'sweep.run', 'sqlalchemy') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip() == "[]"
+
+
+def test_planning_does_not_import_scikit_learn_or_pandas() -> None:
+    # the "nothing left to do in well under a second of planning": reading a spec's worker
+    # declarations must not import the estimator libraries (checked in a fresh interpreter)
+    import subprocess
+    import sys
+
+    code = ("import sys, workers.registry as r; [r.get_worker(n) for n in r.worker_names()]; "
+            "import sweep.spec, sweep.plan, sweep.folds, sweep.store, sweep.run; "
+            "print(sorted(m for m in ('sklearn', 'pandas', 'scipy') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip() == "[]"
