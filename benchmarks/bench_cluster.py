@@ -20,33 +20,16 @@ import os
 import subprocess
 import sys
 import tempfile
-import textwrap
 import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parent.parent
-HERE = Path(__file__).resolve().parent
-
-
-def env() -> dict[str, str]:
-    return {**os.environ, "PYTHONPATH": os.pathsep.join([str(ROOT), str(HERE)])}
+from bench_pipeline import env, spec_text  # noqa: E402 - the same spin-worker spec and environment
 
 
 def write_spec(folder: Path, jobs: int, ms: float) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     spec = folder / "bench.toml"
-    spec.write_text(textwrap.dedent(f"""
-        name = "bench-cluster"
-        [folds]
-        k = 5
-        [[dataset]]
-        name = "iris"
-        builtin = "iris"
-        [[model]]
-        worker = "spin_worker:SPIN"
-        fixed = {{ ms = {ms} }}
-        grid = {{ index = {list(range(jobs // 5))} }}
-    """))
+    spec.write_text(spec_text(jobs // 5, ms, "bench.sqlite"))
     return spec
 
 

@@ -15,7 +15,6 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-import time
 from typing import Any, Sequence
 
 from sweep.errors import FoldsweepError, NoStoreYet
