@@ -17,6 +17,14 @@ and runs a retried job alone so that a job that kills its worker is
 identified exactly. A task cancelled for another reason (its dataset's
 copies were lost, the scheduler restarted) goes back without counting an
 attempt against the job.
+
+The embedded cluster's worker processes are forked from a server process
+that has already imported what a worker needs (``start_worker_factory``,
+called by the run loop before planning, so that those imports overlap the
+driver's own start). Its settings (``EMBEDDED_CONFIG``) turn off what only a
+dashboard would show: with dask's defaults, two idle workers and their
+scheduler use about 20 % of a core (measured: driver 9 %, workers 11.5 %;
+with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
 """
 
 from __future__ import annotations
@@ -31,8 +39,45 @@ from workers.job import Job, run_jobs
 #: seconds to wait for a worker before scattering a dataset again
 WORKER_WAIT_SECONDS = 120
 
+#: dask settings for the embedded cluster, in force while the executor lives (a worker that the
+#: nanny restarts gets them too)
+EMBEDDED_CONFIG: dict[str, Any] = {
+    # the run loop counts attempts itself, and runs a retried job alone
+    "distributed.scheduler.allowed-failures": 0,
+    # a job may start processes of its own (e.g. a worker that uses joblib)
+    "distributed.worker.daemon": False,
+    # workers fork from a server that has the imports done (see start_worker_factory)
+    "distributed.worker.multiprocessing-method": "forkserver",
+    # checks that only feed the dashboard or a warning, at dask's default 20 ms to 500 ms
+    "distributed.admin.tick.interval": "1s",
+    "distributed.admin.system-monitor.interval": "5s",
+    "distributed.worker.profile.enabled": False,
+    # the nanny's check of the worker's memory against its limit (default 100 ms)
+    "distributed.worker.memory.monitor-interval": "500ms",
+}
+
+#: modules imported once by the server that worker processes are forked from
+WORKER_PRELOAD = ["distributed", "distributed.nanny", "distributed.worker", "numpy", "workers.job",
+                  "sweep.datasets"]
+
+
+def start_worker_factory() -> None:
+    """Start, now and in the background, the process embedded workers are forked from.
+
+    It imports :data:`WORKER_PRELOAD` once (about 0.8 s of CPU) while the driver plans, instead
+    of every worker importing them after the cluster is asked for. Idempotent.
+    """
+    import multiprocessing
+    from multiprocessing import forkserver
+
+    multiprocessing.get_context("forkserver").set_forkserver_preload(WORKER_PRELOAD)
+    forkserver.ensure_running()
+
 
 class DaskExecutor(Executor):
+    #: the scheduler, the client and the nanny together spend a few ms of the driver's CPU per task
+    task_seconds = 1.0
+
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
                  **_: Any) -> None:
         import dask
@@ -48,14 +93,18 @@ class DaskExecutor(Executor):
                 raise StoreError(f"--scheduler {scheduler}: cannot reach the dask scheduler: {exc}") from None
             self.workers = max(1, sum(self.client.nthreads().values()))
         else:
-            with dask.config.set({"distributed.scheduler.allowed-failures": 0,
-                                  "distributed.worker.daemon": False}):
-                # the scheduler's HTTP endpoints on a free loopback port: never the shared 8787
-                self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                            host="127.0.0.1", protocol="tcp", dashboard_address=None,
-                                            scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
-                                            memory_limit=memory_limit or "auto", silence_logs=50)
-                self.client = Client(self.cluster)
+            import distributed.utils
+
+            start_worker_factory()
+            # the preload is ours: stop dask from importing its own list (pandas among it) here
+            distributed.utils._forkserver_preload_set = True
+            self._config = dask.config.set(EMBEDDED_CONFIG)
+            # the scheduler's HTTP endpoints on a free loopback port: never the shared 8787
+            self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                        host="127.0.0.1", protocol="tcp", dashboard_address=None,
+                                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                                        memory_limit=memory_limit or "auto", silence_logs=50)
+            self.client = Client(self.cluster)
             self.workers = workers
 
     def share(self, data: Any) -> Any:
@@ -104,3 +153,4 @@ class DaskExecutor(Executor):
         self.client.close()
         if self.cluster is not None:
             self.cluster.close()
+            self._config.__exit__(None, None, None)

@@ -28,6 +28,9 @@ class Executor:
     """Base class; ``workers`` is the number of jobs run at once."""
 
     workers: int = 1
+    #: seconds of work to put in one task when jobs are short (see ``sweep.run``): enough that the
+    #: executor's own cost per task is small beside it
+    task_seconds: float = 0.25
 
     def share(self, data: Any) -> Any:
         """A handle for ``data`` that can be passed with every job cheaply."""

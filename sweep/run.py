@@ -10,8 +10,10 @@
                                     (every second or 50 results, one transaction)
 
 Jobs that turn out to take milliseconds are sent several to a task (about
-``TASK_SECONDS`` of work each), so that the executor's per-task cost does not
-dominate; jobs of seconds go one to a task.
+the executor's ``task_seconds`` of work each: its per-task cost must not
+dominate), fewer as the work left shrinks, so that the workers finish
+together ("guided" sizing: a task is at most half of each worker's share of
+the work not yet handed out); jobs of seconds go one to a task.
 
 Events and what they do: a job finished (its result joins the next commit),
 a job raised (recorded failed with its traceback), its worker process died
@@ -43,8 +45,9 @@ LEASE_SECONDS = 60.0
 COMMIT_EVERY_SECONDS = 1.0
 COMMIT_EVERY_RESULTS = 50
 #: jobs shorter than this are sent several to a task, so that the executor's per-task cost stays small
-TASK_SECONDS = 0.25
 MAX_BATCH = 64
+#: a task is at most this fraction of each worker's share of the work not yet in a task
+GUIDED_FRACTION = 1 / 2
 
 
 @dataclass(frozen=True)
@@ -153,6 +156,10 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
+    if options.backend == "dask" and not options.scheduler:
+        from sweep.dask_executor import start_worker_factory
+
+        start_worker_factory()  # its imports overlap the planning
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec)
     try:
@@ -197,6 +204,7 @@ class _Loop:
                                       memory_limit=self.spec.memory_limit, **options.executor_options)
         self.batch = 1  # jobs per task; grows when jobs turn out to be short
         self.job_seconds: float | None = None
+        self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows
         self.configs = inputs.plan.by_config
         self.folds: dict[str, dict[tuple[int, int], Any]] = {}
         self.handles: dict[str, Any] = {}
@@ -213,6 +221,7 @@ class _Loop:
 
         self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
                                  mode=self.options.progress, stream=self.out)
+        self.unclaimed = counts["pending"]
         last_commit = last_renew = time.monotonic()
         try:
             while True:
@@ -245,6 +254,7 @@ class _Loop:
         requeued = self.store.requeue_stale(self.spec.name)
         if requeued:
             self.exhausted = False
+            self.unclaimed += requeued
         return requeued
 
     def _stop(self) -> None:
@@ -266,9 +276,14 @@ class _Loop:
         if any(c.attempts > 1 for c in held):
             return  # a job retried after a worker death runs alone
         if not self.isolated and not self.exhausted and len(held) <= self.window // 2:
-            claimed = self.store.claim(self.spec.name, self.owner, self.window - len(held),
+            wanted = self.window - len(held)
+            if self.unclaimed <= wanted + self.window // 2:
+                wanted = max(wanted, self.unclaimed)  # the last few too, not in a round of their own
+            claimed = self.store.claim(self.spec.name, self.owner, wanted,
                                        self.options.lease_seconds, self.spec.max_attempts)
             self.exhausted = not claimed
+            # fewer than asked: the rest went to other drivers
+            self.unclaimed = max(0, self.unclaimed - len(claimed)) if len(claimed) == wanted else 0
             self.isolated.extend(c for c in claimed if c.attempts > 1)
             for batch in self._batches([c for c in claimed if c.attempts == 1]):
                 self._submit(batch)
@@ -276,11 +291,20 @@ class _Loop:
             self._submit([self.isolated.pop(0)])
 
     def _batches(self, claimed: list[Claimed]) -> list[list[Claimed]]:
-        """Tasks of up to ``self.batch`` jobs, each on one dataset."""
+        """Tasks of :meth:`_task_size` jobs, each on one dataset, shrinking as the work left
+        to hand out does (the executors run tasks in the order submitted)."""
         by_data: dict[str, list[Claimed]] = {}
         for c in claimed:
             by_data.setdefault(c.fingerprint, []).append(c)
-        return [group[i:i + self.batch] for group in by_data.values() for i in range(0, len(group), self.batch)]
+        tasks, unassigned = [], self.unclaimed + len(claimed)
+        for group in by_data.values():
+            i = 0
+            while i < len(group):
+                size = self._task_size(unassigned)
+                tasks.append(group[i:i + size])
+                i += size
+                unassigned -= size
+        return tasks
 
     def _submit(self, batch: list[Claimed]) -> None:
         from workers.job import Job
@@ -314,7 +338,17 @@ class _Loop:
     def _learn_batch(self, results: list[Any]) -> None:
         seconds = sum(r.finished_at - r.started_at for r in results) / len(results)
         self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
-        self.batch = max(1, min(MAX_BATCH, int(TASK_SECONDS / max(self.job_seconds, 1e-4))))
+        self.batch = self._task_size(self.unclaimed)
+
+    def _task_size(self, unassigned: int) -> int:
+        """Jobs for the next task when ``unassigned`` jobs are not yet in a task: about the
+        executor's ``task_seconds`` of work, at most :data:`GUIDED_FRACTION` of each worker's
+        share of the unassigned work; one until a job's duration is known."""
+        if self.job_seconds is None:
+            return 1
+        job = max(self.job_seconds, 1e-4)
+        seconds = min(self.executor.task_seconds, GUIDED_FRACTION * unassigned * job / self.executor.workers)
+        return max(1, min(MAX_BATCH, int(seconds / job)))
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
         reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"
@@ -324,6 +358,7 @@ class _Loop:
         else:
             self.store.release(self.owner, [claimed.key], count_attempt=blamed)
             self.exhausted = False
+            self.unclaimed += 1
 
     def _commit(self) -> None:
         if not self.finished and not self.give_up:
