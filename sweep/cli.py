@@ -13,7 +13,6 @@ Bad input of any kind ends with one line on standard error and exit code 2.
 from __future__ import annotations
 
 import argparse
-import gc
 import json
 import sys
 from typing import Any, Sequence
@@ -73,10 +72,12 @@ def _positive(text: str) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    if args.backend == "dask" and not args.scheduler:
-        from sweep.dask_executor import start_worker_factory
+    import os
 
-        start_worker_factory()  # before the imports and the planning below, which it overlaps
+    from sweep.executors import start_early
+
+    # before the imports and the planning below, which the workers' start-up then overlaps
+    start_early(args.backend, args.workers or os.cpu_count() or 1, args.scheduler)
     from sweep.run import RunOptions, run_sweep
 
     options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
@@ -169,11 +170,10 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 def console() -> None:
     """The ``foldsweep`` command: :func:`main`, then exit without the interpreter's last garbage
-    collection. Exit handlers still run; the collection alone takes 0.1 to 0.7 s once dask,
-    SQLAlchemy or scikit-learn are imported (measured), for memory the process is giving back."""
-    code = main()
-    gc.freeze()
-    sys.exit(code)
+    collection (see :mod:`sweep._quick_exit`)."""
+    import sweep._quick_exit  # noqa: F401
+
+    sys.exit(main())
 
 
 if __name__ == "__main__":  # pragma: no cover

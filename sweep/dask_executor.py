@@ -19,9 +19,9 @@ copies were lost, the scheduler restarted) goes back without counting an
 attempt against the job.
 
 The embedded cluster's worker processes are forked from a server process
-that has already imported what a worker needs (``start_worker_factory``,
-called by the run loop before planning, so that those imports overlap the
-driver's own start). Its settings (``EMBEDDED_CONFIG``) turn off what only a
+that has already imported what a worker needs
+(``sweep.executors.start_fork_server``, called before planning, so that
+those imports overlap the driver's own start). Its settings (``EMBEDDED_CONFIG``) turn off what only a
 dashboard would show: with dask's defaults, two idle workers and their
 scheduler use about 20 % of a core (measured: driver 9 %, workers 11.5 %;
 with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
@@ -30,10 +30,11 @@ with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import queue
 from typing import Any, Iterable
 
 from sweep.errors import StoreError
-from sweep.executors import Executor
+from sweep.executors import JOB_MODULES, Executor, start_fork_server
 from workers.job import Job, run_jobs
 
 #: seconds to wait for a worker before scattering a dataset again
@@ -46,32 +47,22 @@ EMBEDDED_CONFIG: dict[str, Any] = {
     "distributed.scheduler.allowed-failures": 0,
     # a job may start processes of its own (e.g. a worker that uses joblib)
     "distributed.worker.daemon": False,
-    # workers fork from a server that has the imports done (see start_worker_factory)
+    # workers fork from a server that has the imports done (see sweep.executors.start_fork_server)
     "distributed.worker.multiprocessing-method": "forkserver",
     # checks that only feed the dashboard or a warning, at dask's default 20 ms to 500 ms
     "distributed.admin.tick.interval": "1s",
     "distributed.admin.system-monitor.interval": "5s",
     "distributed.worker.profile.enabled": False,
+    # no HTTP endpoints (metrics, health, the dashboard's pages): nobody can reach this cluster's
+    # random loopback ports, and importing and serving them costs 0.3 s of CPU per run (measured)
+    "distributed.scheduler.http.routes": [],
+    "distributed.worker.http.routes": [],
     # the nanny's check of the worker's memory against its limit (default 100 ms)
     "distributed.worker.memory.monitor-interval": "500ms",
 }
 
-#: modules imported once by the server that worker processes are forked from
-WORKER_PRELOAD = ["distributed", "distributed.nanny", "distributed.worker", "numpy", "workers.job",
-                  "sweep.datasets"]
-
-
-def start_worker_factory() -> None:
-    """Start, now and in the background, the process embedded workers are forked from.
-
-    It imports :data:`WORKER_PRELOAD` once (about 0.8 s of CPU) while the driver plans, instead
-    of every worker importing them after the cluster is asked for. Idempotent.
-    """
-    import multiprocessing
-    from multiprocessing import forkserver
-
-    multiprocessing.get_context("forkserver").set_forkserver_preload(WORKER_PRELOAD)
-    forkserver.ensure_running()
+#: what a dask worker process imports besides the job code (see sweep.executors.start_fork_server)
+WORKER_MODULES = ["distributed", "distributed.nanny", "distributed.worker", *JOB_MODULES]
 
 
 class DaskExecutor(Executor):
@@ -84,6 +75,7 @@ class DaskExecutor(Executor):
         from distributed import Client, LocalCluster
 
         self.cluster = None
+        self._finished: queue.SimpleQueue[Any] = queue.SimpleQueue()
         #: fingerprint -> (dataset, the future of its scattered copies)
         self._shared: dict[str, tuple[Any, Any]] = {}
         if scheduler:
@@ -95,7 +87,7 @@ class DaskExecutor(Executor):
         else:
             import distributed.utils
 
-            start_worker_factory()
+            start_fork_server(WORKER_MODULES)
             # the preload is ours: stop dask from importing its own list (pandas among it) here
             distributed.utils._forkserver_preload_set = True
             self._config = dask.config.set(EMBEDDED_CONFIG)
@@ -113,8 +105,10 @@ class DaskExecutor(Executor):
         return future
 
     def submit(self, jobs: list[Job], handle: Any) -> Any:
-        return self.client.submit(run_jobs, jobs, self._current(jobs[0].fingerprint, handle), pure=False,
-                                  retries=0)
+        future = self.client.submit(run_jobs, jobs, self._current(jobs[0].fingerprint, handle), pure=False,
+                                    retries=0)
+        future.add_done_callback(self._finished.put)  # also when it errs or is cancelled
+        return future
 
     def _current(self, fingerprint: str, handle: Any) -> Any:
         data, future = self._shared.get(fingerprint, (None, handle))
@@ -125,19 +119,18 @@ class DaskExecutor(Executor):
         return future
 
     def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
-        from distributed import wait
-
-        futures = list(futures)
-        done = {f for f in futures if f.done()}
-        if done:
-            return done
+        # the finished futures arrive through their done-callbacks (see submit): waiting costs the
+        # scheduler's event loop nothing, where distributed.wait sets up a waiter per future per call
+        pending = set(futures)
+        done = {f for f in pending if f.done()}
         try:
-            done, _ = wait(futures, timeout=timeout, return_when="FIRST_COMPLETED")
-        except (TimeoutError, cf.TimeoutError):
-            return set()
-        except cf.CancelledError:  # some were cancelled: hand them back, their result() raises
-            return {f for f in futures if f.done()}
-        return set(done)
+            if not done:
+                done.add(self._finished.get(timeout=timeout))
+            while True:
+                done.add(self._finished.get_nowait())
+        except queue.Empty:
+            pass
+        return done & pending  # the others were collected already (through the first line)
 
     def is_worker_death(self, exc: BaseException) -> bool:
         from distributed.scheduler import KilledWorker

@@ -68,11 +68,11 @@ class InProcessExecutor(Executor):
 class JoblibExecutor(Executor):
     """Worker processes from joblib's loky backend (the embedded default)."""
 
-    def __init__(self, workers: int) -> None:
-        from joblib.externals.loky import get_reusable_executor
+    task_seconds = 1.0
 
+    def __init__(self, workers: int) -> None:
         self.workers = workers
-        self._get = lambda: get_reusable_executor(max_workers=workers, timeout=60)
+        self._get = lambda: _loky_pool(workers)
         self._pool = self._get()
         self._dir = tempfile.mkdtemp(prefix="foldsweep-data-")
 
@@ -98,6 +98,52 @@ class JoblibExecutor(Executor):
         if kill:
             self._pool.shutdown(wait=True, kill_workers=True)
         shutil.rmtree(self._dir, ignore_errors=True)
+
+
+#: modules every worker process needs, imported once by the fork server (see start_fork_server)
+JOB_MODULES = ["numpy", "workers.job", "sweep.datasets",
+               # workers exit without a last garbage collection; else they hold the driver's
+               # stdout open a quarter of a second after it exited
+               "sweep._quick_exit"]
+
+
+def start_fork_server(modules: list[str]) -> None:
+    """Start, now and in the background, the server process that worker processes are forked from.
+
+    It imports ``modules`` once, instead of every worker importing them after the pool or
+    cluster is asked for; called before planning, those imports overlap the driver's own.
+    The first call fixes the list (later calls only make sure the server runs). Unlike
+    worker processes started early, the server never holds up the exit of a run that turns
+    out to have nothing to do.
+    """
+    import multiprocessing
+    from multiprocessing import forkserver
+
+    multiprocessing.get_context("forkserver").set_forkserver_preload(modules)
+    forkserver.ensure_running()
+
+
+#: what a loky worker imports besides the job code
+LOKY_MODULES = ["joblib.externals.loky.process_executor", *JOB_MODULES]
+
+
+def _loky_pool(workers: int) -> Any:
+    """loky's reusable pool of ``workers`` processes (the same one on every call while it lives),
+    forked from the fork server."""
+    from joblib.externals.loky import get_reusable_executor
+
+    start_fork_server(LOKY_MODULES)
+    return get_reusable_executor(max_workers=workers, timeout=60, context="forkserver")
+
+
+def start_early(backend: str, workers: int, scheduler: str | None = None) -> None:
+    """Begin what ``backend`` needs before its workers can start (see :func:`start_fork_server`)."""
+    if backend == "dask" and not scheduler:
+        from sweep.dask_executor import WORKER_MODULES
+
+        start_fork_server(WORKER_MODULES)
+    elif backend == "joblib" and workers > 1:
+        start_fork_server(LOKY_MODULES)
 
 
 def _joblib(workers: int, **options: Any) -> Executor:

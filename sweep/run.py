@@ -44,7 +44,7 @@ from sweep.store import Claimed, Store, owner_id
 LEASE_SECONDS = 60.0
 COMMIT_EVERY_SECONDS = 1.0
 COMMIT_EVERY_RESULTS = 50
-#: jobs shorter than this are sent several to a task, so that the executor's per-task cost stays small
+#: the most jobs in one task (short jobs go several to a task; see task_size)
 MAX_BATCH = 64
 #: a task is at most this fraction of each worker's share of the work not yet in a task
 GUIDED_FRACTION = 1 / 2
@@ -156,10 +156,9 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
-    if options.backend == "dask" and not options.scheduler:
-        from sweep.dask_executor import start_worker_factory
+    from sweep.executors import start_early
 
-        start_worker_factory()  # its imports overlap the planning
+    start_early(options.backend, options.workers or os.cpu_count() or 1, options.scheduler)  # overlaps planning
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec)
     try:
@@ -268,8 +267,11 @@ class _Loop:
 
     @property
     def window(self) -> int:
-        """Jobs to hold at once: ``--claim``, else four tasks per worker."""
-        return self.options.claim or 4 * self.executor.workers * self.batch
+        """Jobs to hold at once: ``--claim``, else four tasks per worker (one job per worker until
+        the first results tell how long a job takes)."""
+        if self.options.claim:
+            return self.options.claim
+        return self.executor.workers * (1 if self.job_seconds is None else 4 * self.batch)
 
     def _dispatch(self) -> None:
         held = [c for batch in self.inflight.values() for c in batch]
@@ -291,19 +293,19 @@ class _Loop:
             self._submit([self.isolated.pop(0)])
 
     def _batches(self, claimed: list[Claimed]) -> list[list[Claimed]]:
-        """Tasks of :meth:`_task_size` jobs, each on one dataset, shrinking as the work left
-        to hand out does (the executors run tasks in the order submitted)."""
+        """Tasks of :func:`task_sizes` jobs, each on one dataset (the executors run tasks in the
+        order submitted, so the small ones come last)."""
         by_data: dict[str, list[Claimed]] = {}
         for c in claimed:
             by_data.setdefault(c.fingerprint, []).append(c)
         tasks, unassigned = [], self.unclaimed + len(claimed)
         for group in by_data.values():
-            i = 0
-            while i < len(group):
-                size = self._task_size(unassigned)
-                tasks.append(group[i:i + size])
-                i += size
-                unassigned -= size
+            start = 0
+            for size in task_sizes(len(group), unassigned, self.job_seconds, self.executor.task_seconds,
+                                   self.executor.workers):
+                tasks.append(group[start:start + size])
+                start += size
+            unassigned -= len(group)
         return tasks
 
     def _submit(self, batch: list[Claimed]) -> None:
@@ -338,17 +340,8 @@ class _Loop:
     def _learn_batch(self, results: list[Any]) -> None:
         seconds = sum(r.finished_at - r.started_at for r in results) / len(results)
         self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
-        self.batch = self._task_size(self.unclaimed)
-
-    def _task_size(self, unassigned: int) -> int:
-        """Jobs for the next task when ``unassigned`` jobs are not yet in a task: about the
-        executor's ``task_seconds`` of work, at most :data:`GUIDED_FRACTION` of each worker's
-        share of the unassigned work; one until a job's duration is known."""
-        if self.job_seconds is None:
-            return 1
-        job = max(self.job_seconds, 1e-4)
-        seconds = min(self.executor.task_seconds, GUIDED_FRACTION * unassigned * job / self.executor.workers)
-        return max(1, min(MAX_BATCH, int(seconds / job)))
+        self.batch = task_size(self.unclaimed, self.job_seconds, self.executor.task_seconds,
+                               self.executor.workers)
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
         reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"
@@ -367,6 +360,35 @@ class _Loop:
         ok = sum(r.ok for r in self.finished)
         self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up))
         self.finished, self.give_up = [], {}
+
+
+def task_size(unassigned: int, job_seconds: float | None, task_seconds: float, workers: int) -> int:
+    """Jobs for the next task while ``unassigned`` jobs are in no task yet, a job taking
+    ``job_seconds`` (None: not known yet, one job a task).
+
+    About ``task_seconds`` of work, but at most :data:`GUIDED_FRACTION` of each of the
+    ``workers``' share of the unassigned work, so that tasks shrink towards the end of a sweep
+    and no worker is left with a long task while the others idle; at most :data:`MAX_BATCH`
+    jobs and at least one.
+    """
+    if job_seconds is None:
+        return 1
+    job = max(job_seconds, 1e-4)
+    seconds = min(task_seconds, GUIDED_FRACTION * unassigned * job / workers)
+    return max(1, min(MAX_BATCH, int(seconds / job)))
+
+
+def task_sizes(jobs: int, unassigned: int, job_seconds: float | None, task_seconds: float,
+               workers: int) -> list[int]:
+    """The sizes, in order, of the tasks that ``jobs`` jobs are cut into (:func:`task_size`;
+    ``unassigned`` counts these jobs too)."""
+    sizes: list[int] = []
+    while jobs > 0:
+        size = min(jobs, task_size(unassigned, job_seconds, task_seconds, workers))
+        sizes.append(size)
+        jobs -= size
+        unassigned -= size
+    return sizes
 
 
 def _death_message(exc: BaseException) -> str:
