@@ -96,7 +96,7 @@ class JoblibExecutor(Executor):
 
     def close(self, *, kill: bool = False) -> None:
         if kill:
-            self._pool.shutdown(wait=True, kill_workers=True)
+            _shutdown_killing(self._pool)
         shutil.rmtree(self._dir, ignore_errors=True)
 
 
@@ -125,6 +125,30 @@ def start_fork_server(modules: list[str]) -> None:
 
 #: what a loky worker imports besides the job code
 LOKY_MODULES = ["joblib.externals.loky.process_executor", *JOB_MODULES]
+
+
+def _shutdown_killing(pool: Any) -> None:
+    """Shut ``pool`` down, killing its workers, without the traceback of a race in loky.
+
+    When its manager thread cancels the tasks not yet handed to a worker, it can then look up
+    one of them again and die of a ``KeyError`` (seen about one Ctrl-C in five). The pool is
+    being killed and the run loop has already given those jobs back, so that one exception of
+    that one thread is dropped; any other goes to the usual hook.
+    """
+    import threading
+
+    usual = threading.excepthook
+
+    def hook(args: Any) -> None:
+        if not (args.exc_type is KeyError and args.thread is not None
+                and args.thread.name == "ExecutorManagerThread"):
+            usual(args)
+
+    threading.excepthook = hook
+    try:
+        pool.shutdown(wait=True, kill_workers=True)
+    finally:
+        threading.excepthook = usual
 
 
 def _loky_pool(workers: int) -> Any:
