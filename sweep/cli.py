@@ -17,7 +17,7 @@ import json
 import sys
 from typing import Any, Sequence
 
-from sweep.errors import FoldsweepError, NoStoreYet
+from sweep.errors import FoldsweepError, NoStoreYet, SelectionError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
@@ -51,6 +51,20 @@ def build_parser() -> argparse.ArgumentParser:
     results.add_argument("--format", choices=("csv", "parquet", "json"), default="csv")
     results.add_argument("--out", default=None, help="file to write (default: standard output)")
     results.set_defaults(func=cmd_results)
+
+    model = sub.add_parser("model", help="the model one fold job trained (a fuzzy rule base as text)",
+                           description="Print the model one fold job trained, e.g. the rule base of a "
+                           "configuration that won: name the job by its key (or a unique prefix of "
+                           "it, as in the results' key column), or by dataset, configuration, repeat "
+                           "and fold.")
+    model.add_argument("spec")
+    model.add_argument("key", nargs="?", default=None, help="the job's key, or a unique prefix of it")
+    model.add_argument("--dataset", default=None)
+    model.add_argument("--config", default=None, help="configuration id (or a unique prefix)")
+    model.add_argument("--repeat", type=int, default=0)
+    model.add_argument("--fold", type=int, default=0)
+    model.add_argument("--json", action="store_true")
+    model.set_defaults(func=cmd_model)
 
     try:
         from sweep import report_cli
@@ -151,6 +165,57 @@ def cmd_results(args: argparse.Namespace) -> int:
         store.close()
     write_frame(frame, args.format, args.out)
     return 0
+
+
+def cmd_model(args: argparse.Namespace) -> int:
+    from sweep.run import load_inputs, open_store
+
+    inputs = load_inputs(args.spec)
+    job = _select_job(args, inputs)
+    config = inputs.plan.by_config[job.config_id]
+    store = open_store(inputs.spec, create=False)
+    try:
+        stored = store.stored_model(job.key)
+    finally:
+        store.close()
+    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {job.config_id} {config.label!r}, "
+             f"repeat {job.repeat}, fold {job.fold})")
+    if stored is None:
+        raise SelectionError(f"{args.spec}: {where} has no result yet (see `foldsweep status`)")
+    if stored["model_text"] is None:
+        raise SelectionError(f"{args.spec}: {where}: worker {config.worker!r} stores no model text")
+    if args.json:
+        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id,
+                          "label": config.label, "repeat": job.repeat, "fold": job.fold, **stored}))
+        return 0
+    print(f"{where}: test accuracy {stored['accuracy']:.4f}, training accuracy {stored['train_accuracy']:.4f}")
+    print(stored["model_text"])
+    return 0
+
+
+def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
+    """The planned job named by ``args``: a key prefix, or dataset + configuration + repeat + fold."""
+    jobs = inputs.plan.jobs
+    if args.key is not None:
+        found = [j for j in jobs if j.key.startswith(args.key.lower())]
+        what = f"key {args.key!r}"
+    elif args.dataset is None or args.config is None:
+        raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "
+                             "(with --repeat and --fold, default 0)")
+    else:
+        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(args.config)
+                 and j.repeat == args.repeat and j.fold == args.fold]
+        what = (f"dataset {args.dataset!r}, configuration {args.config!r}, repeat {args.repeat}, "
+                f"fold {args.fold}")
+        if not found:
+            datasets = sorted({j.dataset for j in jobs})
+            if args.dataset not in datasets:
+                raise SelectionError(f"{args.spec}: no dataset {args.dataset!r}; the spec has {', '.join(datasets)}")
+    if not found:
+        raise SelectionError(f"{args.spec}: no planned job matches {what}")
+    if len({j.key for j in found}) > 1:
+        raise SelectionError(f"{args.spec}: {what} matches {len(found)} jobs; give more of it")
+    return found[0]
 
 
 def main(argv: Sequence[str] | None = None) -> int:

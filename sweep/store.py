@@ -485,6 +485,14 @@ class Store:
         with self.engine.connect() as conn:
             return conn.execute(sa.select(results_table.c.model_text).where(results_table.c.key == key)).scalar()
 
+    def stored_model(self, key: str) -> dict[str, Any] | None:
+        """The result row of job ``key`` as far as a reader of its model wants it (None: no result)."""
+        c = results_table.c
+        with self.engine.connect() as conn:
+            row = conn.execute(sa.select(c.accuracy, c.train_accuracy, c.worker_version, c.model_text)
+                               .where(c.key == key)).first()
+        return None if row is None else dict(row._mapping)
+
 
 def _result_row(r: Any) -> dict[str, Any]:
     return dict(key=r.key, accuracy=r.accuracy, balanced_accuracy=r.balanced_accuracy, kappa=r.kappa,

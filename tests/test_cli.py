@@ -429,3 +429,54 @@ def test_ctrl_c_keeps_finished_results_and_leaves_the_rest_pending(tmp_path: Pat
     summary = run_json(spec, "--workers", "1")
     assert summary["ran"] == left["pending"] and summary["done"] == SLOW_JOBS and summary["requeued"] == 0
     assert_each_job_done_once(db, SLOW_JOBS)
+
+
+RULES = """
+name = "rules"
+store = "rules.sqlite"
+[folds]
+k = 3
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[model]]
+name = "fuzzy"
+worker = "fuzzy_rules"
+fixed = { evaluations = 200, population = 20 }
+[[model]]
+name = "tree"
+worker = "decision_tree"
+"""
+
+
+def test_model_prints_the_stored_rule_base_of_one_job(tmp_path: Path) -> None:
+    spec = write_spec(tmp_path, RULES)
+    assert run_json(spec, "--workers", "1")["done"] == 6
+    rows = [r for r in result_rows(spec) if r["worker"] == "fuzzy_rules"]
+    row = next(r for r in rows if r["repeat"] == 0 and r["fold"] == 1)
+    by_key = ok(run_foldsweep("model", spec, row["key"][:10], "--json"))
+    shown = json.loads(by_key.stdout)
+    assert shown["key"] == row["key"] and shown["accuracy"] == pytest.approx(row["accuracy"])
+    # the same job named by dataset, configuration, repeat and fold
+    by_cell = ok(run_foldsweep("model", spec, "--dataset", "iris", "--config", row["config_id"], "--fold", "1"))
+    text = by_cell.stdout
+    assert shown["model_text"] in text and row["key"][:12] in text.splitlines()[0]
+    rules = [line for line in text.splitlines() if line.startswith("IF ")]
+    assert len(rules) == row["rules_selected"] >= 1
+    # classes and variables by the names scikit-learn's iris data gives them (load_iris target_names
+    # and feature_names)
+    assert {line.rsplit(" THEN ", 1)[1].split()[0] for line in rules} <= {"setosa", "versicolor", "virginica"}
+    assert any("petal" in line for line in rules)
+
+
+def test_model_names_what_is_wrong_in_one_line(tmp_path: Path) -> None:
+    spec = write_spec(tmp_path, RULES)
+    run_json(spec, "--workers", "1")
+    tree = next(r for r in result_rows(spec) if r["worker"] == "decision_tree")
+    for args, words in [(("ffffffffff",), "no planned job matches key"),
+                        ((), "--dataset and --config"),
+                        (("--dataset", "wine", "--config", tree["config_id"]), "the spec has iris"),
+                        ((tree["key"],), "stores no model text")]:
+        proc = run_foldsweep("model", spec, *args)
+        assert proc.returncode == 2 and proc.stdout == "", (args, proc.stdout, proc.stderr)
+        assert words in proc.stderr and len(proc.stderr.strip().splitlines()) == 1, (args, proc.stderr)
