@@ -86,12 +86,6 @@ def _positive(text: str) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    import os
-
-    from sweep.executors import start_early
-
-    # before the imports and the planning below, which the workers' start-up then overlaps
-    start_early(args.backend, args.workers or os.cpu_count() or 1, args.scheduler)
     from sweep.run import RunOptions, run_sweep
 
     options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,

@@ -19,9 +19,7 @@ copies were lost, the scheduler restarted) goes back without counting an
 attempt against the job.
 
 The embedded cluster's worker processes are forked from a server process
-that has already imported what a worker needs
-(``sweep.executors.start_fork_server``, called before planning, so that
-those imports overlap the driver's own start). Its settings (``EMBEDDED_CONFIG``) turn off what only a
+that has already imported what a worker needs (:mod:`sweep.forking`). Its settings (``EMBEDDED_CONFIG``) turn off what only a
 dashboard would show: with dask's defaults, two idle workers and their
 scheduler use about 20 % of a core (measured: driver 9 %, workers 11.5 %;
 with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
@@ -34,7 +32,8 @@ import queue
 from typing import Any, Iterable
 
 from sweep.errors import StoreError
-from sweep.executors import JOB_MODULES, Executor, start_fork_server
+from sweep.executors import JOB_MODULES, Executor
+from sweep.forking import ensure_fork_server
 from workers.job import Job, run_jobs
 
 #: seconds to wait for a worker before scattering a dataset again
@@ -47,7 +46,7 @@ EMBEDDED_CONFIG: dict[str, Any] = {
     "distributed.scheduler.allowed-failures": 0,
     # a job may start processes of its own (e.g. a worker that uses joblib)
     "distributed.worker.daemon": False,
-    # workers fork from a server that has the imports done (see sweep.executors.start_fork_server)
+    # workers fork from a server that has the imports done (see sweep.forking)
     "distributed.worker.multiprocessing-method": "forkserver",
     # checks that only feed the dashboard or a warning, at dask's default 20 ms to 500 ms
     "distributed.admin.tick.interval": "1s",
@@ -61,7 +60,7 @@ EMBEDDED_CONFIG: dict[str, Any] = {
     "distributed.worker.memory.monitor-interval": "500ms",
 }
 
-#: what a dask worker process imports besides the job code (see sweep.executors.start_fork_server)
+#: what a dask worker process imports besides the job code (see sweep.forking)
 WORKER_MODULES = ["distributed", "distributed.nanny", "distributed.worker", *JOB_MODULES]
 
 
@@ -87,7 +86,10 @@ class DaskExecutor(Executor):
         else:
             import distributed.utils
 
-            start_fork_server(WORKER_MODULES)
+            import distributed.nanny  # noqa: F401 - in the driver, so in a fork server made from it
+            import distributed.worker  # noqa: F401
+
+            ensure_fork_server(WORKER_MODULES)
             # the preload is ours: stop dask from importing its own list (pandas among it) here
             distributed.utils._forkserver_preload_set = True
             self._config = dask.config.set(EMBEDDED_CONFIG)

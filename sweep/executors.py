@@ -21,6 +21,7 @@ import shutil
 import tempfile
 from typing import Any, Callable, Iterable
 
+from sweep.forking import ensure_fork_server
 from workers.job import DataRef, Job, run_jobs
 
 
@@ -100,27 +101,11 @@ class JoblibExecutor(Executor):
         shutil.rmtree(self._dir, ignore_errors=True)
 
 
-#: modules every worker process needs, imported once by the fork server (see start_fork_server)
+#: modules every worker process needs (imported by a fork server that had to start the standard way)
 JOB_MODULES = ["numpy", "workers.job", "sweep.datasets",
                # workers exit without a last garbage collection; else they hold the driver's
                # stdout open a quarter of a second after it exited
                "sweep._quick_exit"]
-
-
-def start_fork_server(modules: list[str]) -> None:
-    """Start, now and in the background, the server process that worker processes are forked from.
-
-    It imports ``modules`` once, instead of every worker importing them after the pool or
-    cluster is asked for; called before planning, those imports overlap the driver's own.
-    The first call fixes the list (later calls only make sure the server runs). Unlike
-    worker processes started early, the server never holds up the exit of a run that turns
-    out to have nothing to do.
-    """
-    import multiprocessing
-    from multiprocessing import forkserver
-
-    multiprocessing.get_context("forkserver").set_forkserver_preload(modules)
-    forkserver.ensure_running()
 
 
 #: what a loky worker imports besides the job code
@@ -156,18 +141,8 @@ def _loky_pool(workers: int) -> Any:
     forked from the fork server."""
     from joblib.externals.loky import get_reusable_executor
 
-    start_fork_server(LOKY_MODULES)
+    ensure_fork_server(LOKY_MODULES)
     return get_reusable_executor(max_workers=workers, timeout=60, context="forkserver")
-
-
-def start_early(backend: str, workers: int, scheduler: str | None = None) -> None:
-    """Begin what ``backend`` needs before its workers can start (see :func:`start_fork_server`)."""
-    if backend == "dask" and not scheduler:
-        from sweep.dask_executor import WORKER_MODULES
-
-        start_fork_server(WORKER_MODULES)
-    elif backend == "joblib" and workers > 1:
-        start_fork_server(LOKY_MODULES)
 
 
 def _joblib(workers: int, **options: Any) -> Executor:

@@ -156,9 +156,6 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
-    from sweep.executors import start_early
-
-    start_early(options.backend, options.workers or os.cpu_count() or 1, options.scheduler)  # overlaps planning
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec)
     try:
@@ -199,6 +196,8 @@ class _Loop:
         self.spec = inputs.spec
         self.owner = owner_id()
         workers = options.workers or os.cpu_count() or 1
+        # the executor may fork this process (sweep.forking): no database connection is copied
+        store.drop_connections()
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
                                       memory_limit=self.spec.memory_limit, **options.executor_options)
         self.batch = 1  # jobs per task; grows when jobs turn out to be short

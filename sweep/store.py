@@ -194,6 +194,11 @@ class Store:
     def close(self) -> None:
         self.engine.dispose()
 
+    def drop_connections(self) -> None:
+        """Close the pooled connections (the store stays usable: it reconnects when next used).
+        Before a fork, so that no child process holds a copy of a live database connection."""
+        self.engine.dispose()
+
     def _schema_version(self) -> int | None:
         names = set(sa.inspect(self.engine).get_table_names())
         if not names:
