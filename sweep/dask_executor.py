@@ -31,6 +31,7 @@ import concurrent.futures as cf
 import queue
 from typing import Any, Iterable
 
+from sweep.cluster_process import ClusterProcess
 from sweep.errors import StoreError
 from sweep.executors import JOB_MODULES, Executor
 from sweep.forking import ensure_fork_server
@@ -69,11 +70,13 @@ class DaskExecutor(Executor):
     task_seconds = 1.0
 
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
-                 **_: Any) -> None:
+                 cluster: ClusterProcess | None = None, **_: Any) -> None:
         import dask
-        from distributed import Client, LocalCluster
+        from distributed import Client
 
-        self.cluster = None
+        self.cluster: Any = None
+        self.process = None
+        self._config: Any = None
         self._finished: queue.SimpleQueue[Any] = queue.SimpleQueue()
         #: fingerprint -> (dataset, the future of its scattered copies)
         self._shared: dict[str, tuple[Any, Any]] = {}
@@ -83,23 +86,15 @@ class DaskExecutor(Executor):
             except (OSError, TimeoutError) as exc:
                 raise StoreError(f"--scheduler {scheduler}: cannot reach the dask scheduler: {exc}") from None
             self.workers = max(1, sum(self.client.nthreads().values()))
-        else:
-            import distributed.utils
-
-            import distributed.nanny  # noqa: F401 - in the driver, so in a fork server made from it
-            import distributed.worker  # noqa: F401
-
-            ensure_fork_server(WORKER_MODULES)
-            # the preload is ours: stop dask from importing its own list (pandas among it) here
-            distributed.utils._forkserver_preload_set = True
-            self._config = dask.config.set(EMBEDDED_CONFIG)
-            # the scheduler's HTTP endpoints on a free loopback port: never the shared 8787
-            self.cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                        host="127.0.0.1", protocol="tcp", dashboard_address=None,
-                                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
-                                        memory_limit=memory_limit or "auto", silence_logs=50)
+            return
+        self._config = dask.config.set(EMBEDDED_CONFIG)  # the client's side of it
+        self.process = cluster or ClusterProcess.start(workers, memory_limit)
+        if self.process is not None:
+            self.client = Client(self.process.address())
+        else:  # this process cannot fork safely: the cluster runs in it
+            self.cluster = local_cluster(workers, memory_limit)
             self.client = Client(self.cluster)
-            self.workers = workers
+        self.workers = workers
 
     def share(self, data: Any) -> Any:
         future = self.client.scatter(data, broadcast=True, hash=False)
@@ -146,6 +141,25 @@ class DaskExecutor(Executor):
 
     def close(self, *, kill: bool = False) -> None:
         self.client.close()
+        if self.process is not None:
+            self.process.stop()
         if self.cluster is not None:
             self.cluster.close()
+        if self._config is not None:
             self._config.__exit__(None, None, None)
+
+
+def local_cluster(workers: int, memory_limit: str | None) -> Any:
+    """The embedded cluster in this process (when it cannot be forked off: :mod:`sweep.cluster_process`)."""
+    import distributed.nanny  # noqa: F401 - in this process, so in a fork server made from it
+    import distributed.utils
+    import distributed.worker  # noqa: F401
+    from distributed import LocalCluster
+
+    ensure_fork_server(WORKER_MODULES)
+    distributed.utils._forkserver_preload_set = True  # the preload is ours (no pandas import here)
+    # the scheduler's HTTP server on a free loopback port: never the shared 8787
+    return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
+                        protocol="tcp", dashboard_address=None,
+                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                        memory_limit=memory_limit or "auto", silence_logs=50)

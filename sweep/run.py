@@ -156,6 +156,26 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
+    cluster = _start_cluster(spec_path, options)
+    try:
+        return _run(spec_path, options, out, started, cluster)
+    finally:
+        if cluster is not None:
+            cluster.kill()  # unless the run used (and stopped) it: nothing to do, or bad input
+
+
+def _start_cluster(spec_path: str | Path, options: RunOptions) -> Any:
+    """The embedded dask cluster, started now in a process of its own so that it comes up while
+    this one plans (:mod:`sweep.cluster_process`); None for other backends, or where it cannot."""
+    if options.backend != "dask" or options.scheduler:
+        return None
+    from sweep.cluster_process import ClusterProcess
+
+    spec = load_spec(spec_path)  # a bad spec is reported before anything starts
+    return ClusterProcess.start(options.workers or os.cpu_count() or 1, spec.memory_limit)
+
+
+def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, cluster: Any) -> RunSummary:
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec)
     try:
@@ -169,7 +189,7 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
         if counts["pending"] == 0:
             _finish(summary, counts, started)
             return summary
-        loop = _Loop(store, inputs, options, out)
+        loop = _Loop(store, inputs, options, out, cluster)
         try:
             loop.run(counts)
         finally:
@@ -189,7 +209,8 @@ def _finish(summary: RunSummary, counts: Mapping[str, int], started: float) -> N
 class _Loop:
     """One driver's dispatch loop over the tracker (see the module docstring)."""
 
-    def __init__(self, store: Store, inputs: Inputs, options: RunOptions, out: TextIO) -> None:
+    def __init__(self, store: Store, inputs: Inputs, options: RunOptions, out: TextIO,
+                 cluster: Any = None) -> None:
         from sweep.executors import make_executor
 
         self.store, self.inputs, self.options, self.out = store, inputs, options, out
@@ -199,7 +220,9 @@ class _Loop:
         # the executor may fork this process (sweep.forking): no database connection is copied
         store.drop_connections()
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
-                                      memory_limit=self.spec.memory_limit, **options.executor_options)
+                                      memory_limit=self.spec.memory_limit,
+                                      **({"cluster": cluster} if cluster is not None else {}),
+                                      **options.executor_options)
         self.batch = 1  # jobs per task; grows when jobs turn out to be short
         self.job_seconds: float | None = None
         self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows

@@ -1,7 +1,8 @@
 """The dask.distributed backend, end to end through the real ``foldsweep`` command.
 
 - an embedded LocalCluster of 2 worker processes over TCP on loopback gives the same result rows
-  as the joblib backend;
+  as the joblib backend, whether it runs in a process of its own (the command) or, where the
+  driver cannot fork safely, inside the driver;
 - an existing cluster (a LocalCluster started here, its scheduler in this process) reached with
   ``--scheduler tcp://127.0.0.1:PORT`` gives the same rows, runs every job there, and receives each
   dataset once (one scatter per dataset, counted at the scheduler), not once per job.
@@ -77,6 +78,29 @@ def test_local_cluster_gives_the_joblib_rows(tmp_path: Path, joblib_rows: list[d
     assert len(rows) == JOBS and rows == joblib_rows
 
 
+def test_cluster_in_the_driver_when_it_cannot_fork(tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
+    # a driver with another thread running must not fork (the child could inherit a held lock):
+    # the embedded cluster then runs inside it, with the same results (common practice, as above)
+    import threading
+
+    from sweep.cluster_process import ClusterProcess
+    from sweep.run import RunOptions, run_sweep
+
+    spec = tmp_path / "sweep.toml"
+    spec.write_text(SPEC)
+    stop = threading.Event()
+    other = threading.Thread(target=stop.wait, daemon=True)
+    other.start()
+    try:
+        assert ClusterProcess.start(2, None) is None
+        summary = run_sweep(spec, RunOptions(backend="dask", workers=2, progress="none"))
+    finally:
+        stop.set()
+        other.join()
+    assert (summary.done, summary.failed, summary.ran) == (JOBS, 0, JOBS)
+    assert _rows(spec) == joblib_rows
+
+
 class _Counter:
     """Counts, at a scheduler living in this process, scatter requests and finished fold-job tasks."""
 
@@ -139,3 +163,50 @@ def test_unreachable_scheduler_is_one_line_exit_2(tmp_path: Path) -> None:
     assert proc.returncode == 2, proc.stderr
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "cannot reach the dask scheduler" in lines[0], proc.stderr
+
+
+SLOW_SPEC = """
+name = "dask-slow"
+[folds]
+k = 3
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[model]]
+worker = "tests.plugin_workers:SLOW_CENTROID"
+grid = { n_features = [1, 2, 3, 4] }
+"""
+
+
+@pytest.mark.slow
+def test_driver_sigkilled_leaves_no_cluster_process_behind(tmp_path: Path) -> None:
+    # common practice: a killed parent must not leave its helper processes running (orphans would
+    # keep cores and memory, and hold the terminal's output open)
+    import os
+    import signal
+    import time
+
+    import psutil
+
+    from tests.conftest import start_foldsweep
+
+    spec = tmp_path / "slow.toml"
+    spec.write_text(SLOW_SPEC)
+    proc = start_foldsweep("run", spec, "--backend", "dask", "--workers", "2", "--progress", "none",
+                           env={"FOLDSWEEP_TEST_DELAY": "0.5"})
+    try:
+        driver = psutil.Process(proc.pid)
+        deadline = time.monotonic() + 60
+        helpers: list[psutil.Process] = []
+        while time.monotonic() < deadline and len(helpers) < 4:  # cluster process, fork server, 2 workers
+            time.sleep(0.2)
+            helpers = [p for p in driver.children(recursive=True) if "resource_tracker" not in " ".join(p.cmdline())]
+        assert len(helpers) >= 4, [p.cmdline() for p in helpers]
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.communicate(timeout=60)
+        gone, alive = psutil.wait_procs(helpers, timeout=20)
+        assert alive == [], [(p.pid, p.cmdline()) for p in alive]
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.communicate()

@@ -1,0 +1,150 @@
+"""The embedded dask cluster in a process of its own, started before planning.
+
+``foldsweep run --backend dask`` without ``--scheduler`` needs a
+``distributed.LocalCluster``: a scheduler, a nanny per worker and the worker
+processes. Starting one takes about 0.6 s, most of it importing distributed
+and bringing up the scheduler, all Python code that would hold the driver's
+GIL. :meth:`ClusterProcess.start` forks the driver at the very start of a
+run (while it is single-threaded and has opened nothing) into a process
+that starts the cluster there, on the other cores, while the driver loads
+its datasets and plans; the driver's client then connects to it over
+loopback TCP. The scheduler's per-task work also runs there, beside the
+driver rather than inside it.
+
+Lifetime: the cluster process lives while the driver holds the write end
+of a pipe. :meth:`ClusterProcess.stop` closes it and the process closes
+the cluster (the nannies stop their workers); when the driver dies, even by
+SIGKILL, the pipe closes all the same. Ctrl-C is the driver's to handle:
+the cluster process ignores SIGINT. :meth:`ClusterProcess.kill` is for a
+run that never used the cluster (nothing to do, bad input): the workers
+follow their nannies' process at once.
+"""
+
+from __future__ import annotations
+
+import os
+import select
+import signal
+import sys
+import threading
+import time
+from sweep.errors import FoldsweepError
+
+#: seconds to wait for the cluster to come up, and for it to close
+START_SECONDS = 120.0
+STOP_SECONDS = 15.0
+
+
+class ClusterProcess:
+    """Handle of a forked process running a LocalCluster (see the module docstring)."""
+
+    def __init__(self, pid: int, address_r: int, alive_w: int) -> None:
+        self.pid = pid
+        self._address_r: int | None = address_r
+        self._alive_w: int | None = alive_w
+        self._address: str | None = None
+        self._reaped = False
+
+    @classmethod
+    def start(cls, workers: int, memory_limit: str | None) -> ClusterProcess | None:
+        """Fork the cluster process now; None where forking is not safe here (another thread runs,
+        whose locks the child could inherit held) or not possible (no ``os.fork``)."""
+        if not hasattr(os, "fork") or threading.active_count() > 1:
+            return None
+        address_r, address_w = os.pipe()
+        alive_r, alive_w = os.pipe()
+        sys.stdout.flush()  # nothing buffered gets written twice
+        sys.stderr.flush()
+        pid = os.fork()
+        if pid == 0:
+            code = 1
+            try:
+                os.close(address_r)
+                os.close(alive_w)
+                code = _serve(workers, memory_limit, address_w, alive_r)
+            except BaseException as exc:  # noqa: BLE001 - reported to the driver, which raises it
+                _send(address_w, f"{type(exc).__name__}: {exc}")
+            finally:
+                os._exit(code)  # never the driver's exit handlers, nor its buffered output
+        os.close(address_w)
+        os.close(alive_r)
+        return cls(pid, address_r, alive_w)
+
+    def address(self, timeout: float = START_SECONDS) -> str:
+        """The scheduler's address, once the cluster is up."""
+        if self._address is None:
+            line = _read_line(self._address_r, timeout) if self._address_r is not None else ""
+            if self._address_r is not None:
+                os.close(self._address_r)
+                self._address_r = None
+            if not line.startswith("tcp://"):
+                self.kill()
+                raise FoldsweepError("the embedded dask cluster did not start: "
+                                     + (line or f"no answer in {timeout:g} s"))
+            self._address = line
+        return self._address
+
+    def stop(self, timeout: float = STOP_SECONDS) -> None:
+        """Ask the process to close the cluster and wait for it (killed if it takes too long)."""
+        if self._alive_w is None:
+            return
+        os.close(self._alive_w)
+        self._alive_w = None
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            pid, _ = os.waitpid(self.pid, os.WNOHANG)
+            if pid:
+                self._reaped = True
+                return
+            time.sleep(0.01)
+        self.kill()
+
+    def kill(self) -> None:
+        """End the process now (its workers follow it); nothing once it has been reaped."""
+        if self._alive_w is not None:
+            os.close(self._alive_w)
+            self._alive_w = None
+        if self._reaped:
+            return  # its pid may belong to another process by now
+        try:
+            os.kill(self.pid, signal.SIGKILL)
+            os.waitpid(self.pid, 0)
+        except (ProcessLookupError, ChildProcessError):
+            pass
+        self._reaped = True
+
+
+def _serve(workers: int, memory_limit: str | None, address_w: int, alive_r: int) -> int:
+    """In the cluster process: start the cluster, report its address, close it when told."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    import dask
+
+    from sweep.dask_executor import EMBEDDED_CONFIG, local_cluster
+
+    dask.config.set(EMBEDDED_CONFIG)  # for this process's lifetime; the nannies pass it on
+    cluster = local_cluster(workers, memory_limit)
+    _send(address_w, cluster.scheduler_address)
+    while os.read(alive_r, 1):  # until the driver closes its end, or dies
+        pass
+    cluster.close(timeout=STOP_SECONDS)
+    return 0
+
+
+def _send(fd: int, line: str) -> None:
+    os.write(fd, (" ".join(line.split()) + "\n").encode())
+    os.close(fd)
+
+
+def _read_line(fd: int, timeout: float) -> str:
+    data = b""
+    deadline = time.monotonic() + timeout
+    while not data.endswith(b"\n"):
+        left = deadline - time.monotonic()
+        if left <= 0 or not select.select([fd], [], [], left)[0]:
+            break
+        chunk = os.read(fd, 4096)
+        if not chunk:
+            break
+        data += chunk
+    return data.decode(errors="replace").strip()
+
