@@ -86,12 +86,20 @@ def _positive(text: str) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from sweep.run import RunOptions, run_sweep
+    from sweep.cluster_process import start_for
 
-    options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
-                         retry_failed=args.retry_failed, claim=args.claim,
-                         accept_changed_data=args.accept_changed_data, progress=args.progress)
-    summary = run_sweep(args.spec, options)
+    # first, so that an embedded dask cluster comes up during the imports and the planning below
+    cluster = start_for(args.spec, args.backend, args.workers, args.scheduler)
+    try:
+        from sweep.run import RunOptions, run_sweep
+
+        options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
+                             retry_failed=args.retry_failed, claim=args.claim,
+                             accept_changed_data=args.accept_changed_data, progress=args.progress)
+        summary = run_sweep(args.spec, options, cluster=cluster)
+    finally:
+        if cluster is not None:
+            cluster.kill()  # a no-op once the run has stopped it
     if args.json:
         print(json.dumps(summary.__dict__))
     else:

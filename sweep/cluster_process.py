@@ -28,6 +28,8 @@ import signal
 import sys
 import threading
 import time
+from typing import Any
+
 from sweep.errors import FoldsweepError
 
 #: seconds to wait for the cluster to come up, and for it to close
@@ -112,6 +114,19 @@ class ClusterProcess:
         except (ProcessLookupError, ChildProcessError):
             pass
         self._reaped = True
+
+
+def start_for(spec_path: Any, backend: str, workers: int | None, scheduler: str | None) -> ClusterProcess | None:
+    """The cluster process a run with these options needs (None: another backend, an existing
+    scheduler, or a driver that cannot fork; it then starts its cluster itself). Cheap to call
+    first thing: the spec is read (a bad one is reported before anything starts), nothing heavy
+    is imported."""
+    if backend != "dask" or scheduler:
+        return None
+    from sweep.spec import load_spec
+
+    spec = load_spec(spec_path)
+    return ClusterProcess.start(workers or os.cpu_count() or 1, spec.memory_limit)
 
 
 def _serve(workers: int, memory_limit: str | None, address_w: int, alive_r: int) -> int:

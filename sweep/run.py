@@ -151,28 +151,24 @@ def open_store(spec: Spec, *, create: bool = True) -> Store:
 
 
 def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
-              out: TextIO | None = None) -> RunSummary:
-    """Plan, sync and run every pending job of the sweep at ``spec_path``."""
+              out: TextIO | None = None, cluster: Any = None) -> RunSummary:
+    """Plan, sync and run every pending job of the sweep at ``spec_path``.
+
+    ``cluster``: an embedded dask cluster already started for this run
+    (:func:`sweep.cluster_process.start_for`); else it is started here when the options ask for one.
+    """
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
-    cluster = _start_cluster(spec_path, options)
+    if cluster is None:
+        from sweep.cluster_process import start_for
+
+        cluster = start_for(spec_path, options.backend, options.workers, options.scheduler)
     try:
         return _run(spec_path, options, out, started, cluster)
     finally:
         if cluster is not None:
             cluster.kill()  # unless the run used (and stopped) it: nothing to do, or bad input
-
-
-def _start_cluster(spec_path: str | Path, options: RunOptions) -> Any:
-    """The embedded dask cluster, started now in a process of its own so that it comes up while
-    this one plans (:mod:`sweep.cluster_process`); None for other backends, or where it cannot."""
-    if options.backend != "dask" or options.scheduler:
-        return None
-    from sweep.cluster_process import ClusterProcess
-
-    spec = load_spec(spec_path)  # a bad spec is reported before anything starts
-    return ClusterProcess.start(options.workers or os.cpu_count() or 1, spec.memory_limit)
 
 
 def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, cluster: Any) -> RunSummary:
