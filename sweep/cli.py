@@ -99,7 +99,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         summary = run_sweep(args.spec, options, cluster=cluster)
     finally:
         if cluster is not None:
-            cluster.kill()  # a no-op once the run has stopped it
+            cluster.stop(wait=False)  # a no-op once the run has stopped it
     if args.json:
         print(json.dumps(summary.__dict__))
     else:

@@ -15,9 +15,7 @@ Lifetime: the cluster process lives while the driver holds the write end
 of a pipe. :meth:`ClusterProcess.stop` closes it and the process closes
 the cluster (the nannies stop their workers); when the driver dies, even by
 SIGKILL, the pipe closes all the same. Ctrl-C is the driver's to handle:
-the cluster process ignores SIGINT. :meth:`ClusterProcess.kill` is for a
-run that never used the cluster (nothing to do, bad input): the workers
-follow their nannies' process at once.
+the cluster process ignores SIGINT.
 """
 
 from __future__ import annotations
@@ -86,12 +84,17 @@ class ClusterProcess:
             self._address = line
         return self._address
 
-    def stop(self, timeout: float = STOP_SECONDS) -> None:
-        """Ask the process to close the cluster and wait for it (killed if it takes too long)."""
+    def stop(self, timeout: float = STOP_SECONDS, *, wait: bool = True) -> None:
+        """Ask the process to close the cluster (the nannies stop their workers, which frees
+        their semaphores and scratch directories) and wait for it, killing it if it takes
+        longer than ``timeout``. ``wait=False`` for a run that never used it (nothing to do, bad
+        input): it finishes starting, then closes, on its own. Nothing the second time."""
         if self._alive_w is None:
             return
         os.close(self._alive_w)
         self._alive_w = None
+        if not wait:
+            return
         deadline = time.monotonic() + timeout
         while time.monotonic() < deadline:
             pid, _ = os.waitpid(self.pid, os.WNOHANG)
@@ -146,8 +149,14 @@ def _serve(workers: int, memory_limit: str | None, address_w: int, alive_r: int)
 
 
 def _send(fd: int, line: str) -> None:
-    os.write(fd, (" ".join(line.split()) + "\n").encode())
-    os.close(fd)
+    """Write ``line`` for the driver; quietly nothing if it stopped listening (it has exited, or
+    let the cluster go: the cluster is then closed all the same)."""
+    try:
+        os.write(fd, (" ".join(line.split()) + "\n").encode())
+    except BrokenPipeError:
+        pass
+    finally:
+        os.close(fd)
 
 
 def _read_line(fd: int, timeout: float) -> str:

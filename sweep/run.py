@@ -168,7 +168,7 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
         return _run(spec_path, options, out, started, cluster)
     finally:
         if cluster is not None:
-            cluster.kill()  # unless the run used (and stopped) it: nothing to do, or bad input
+            cluster.stop(wait=False)  # unless the run used (and stopped) it: nothing to do, or bad input
 
 
 def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, cluster: Any) -> RunSummary:

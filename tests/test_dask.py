@@ -76,6 +76,10 @@ def test_local_cluster_gives_the_joblib_rows(tmp_path: Path, joblib_rows: list[d
     rows = _rows(spec)
     # common practice: the same fold jobs through another execution engine give identical rows
     assert len(rows) == JOBS and rows == joblib_rows
+    # a re-run has nothing to do: the cluster it started goes away cleanly, without a word
+    # (a cluster process killed mid-start would leave semaphores that the resource tracker reports)
+    again = _ok(run_foldsweep("run", spec, "--backend", "dask", "--workers", "2", "--progress", "none"))
+    assert "nothing left to do" in again.stdout and again.stderr == "", again.stderr
 
 
 def test_cluster_in_the_driver_when_it_cannot_fork(tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
