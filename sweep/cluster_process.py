@@ -43,7 +43,7 @@ class ClusterProcess:
         self._address_r: int | None = address_r
         self._alive_w: int | None = alive_w
         self._address: str | None = None
-        self._reaped = False
+        self._gone = False
 
     @classmethod
     def start(cls, workers: int, memory_limit: str | None) -> ClusterProcess | None:
@@ -51,6 +51,7 @@ class ClusterProcess:
         whose locks the child could inherit held) or not possible (no ``os.fork``)."""
         if not hasattr(os, "fork") or threading.active_count() > 1:
             return None
+        _reap()
         address_r, address_w = os.pipe()
         alive_r, alive_w = os.pipe()
         sys.stdout.flush()  # nothing buffered gets written twice
@@ -88,35 +89,53 @@ class ClusterProcess:
         """Ask the process to close the cluster (the nannies stop their workers, which frees
         their semaphores and scratch directories) and wait for it, killing it if it takes
         longer than ``timeout``. ``wait=False`` for a run that never used it (nothing to do, bad
-        input): it finishes starting, then closes, on its own. Nothing the second time."""
+        input), or once every result is committed: it finishes starting if need be, then closes, on
+        its own, while the driver goes on. Nothing the second time."""
         if self._alive_w is None:
             return
         os.close(self._alive_w)
         self._alive_w = None
         if not wait:
+            _UNREAPED.append(self.pid)  # reaped by a later start (or gone with this process)
+            self._gone = True  # no longer ours to signal: its pid may be reused once reaped
             return
         deadline = time.monotonic() + timeout
         while time.monotonic() < deadline:
             pid, _ = os.waitpid(self.pid, os.WNOHANG)
             if pid:
-                self._reaped = True
+                self._gone = True
                 return
             time.sleep(0.01)
         self.kill()
 
     def kill(self) -> None:
-        """End the process now (its workers follow it); nothing once it has been reaped."""
+        """End the process now (its workers follow it); nothing once it has been reaped or let go."""
         if self._alive_w is not None:
             os.close(self._alive_w)
             self._alive_w = None
-        if self._reaped:
+        if self._gone:
             return  # its pid may belong to another process by now
         try:
             os.kill(self.pid, signal.SIGKILL)
             os.waitpid(self.pid, 0)
         except (ProcessLookupError, ChildProcessError):
             pass
-        self._reaped = True
+        self._gone = True
+
+
+#: cluster processes let go without waiting for them (see ClusterProcess.stop)
+_UNREAPED: list[int] = []
+
+
+def _reap() -> None:
+    """Collect the exit status of those that have ended, so that none stays a zombie."""
+    for pid in list(_UNREAPED):
+        try:
+            done, _ = os.waitpid(pid, os.WNOHANG)
+        except ChildProcessError:
+            done = pid
+        if done:
+            _UNREAPED.remove(pid)
 
 
 def start_for(spec_path: Any, backend: str, workers: int | None, scheduler: str | None) -> ClusterProcess | None:

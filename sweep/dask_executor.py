@@ -142,7 +142,7 @@ class DaskExecutor(Executor):
     def close(self, *, kill: bool = False) -> None:
         self.client.close()
         if self.process is not None:
-            self.process.stop()
+            self.process.stop(wait=False)  # every result is committed: it closes the cluster on its own
         if self.cluster is not None:
             self.cluster.close()
         if self._config is not None:
