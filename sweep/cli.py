@@ -88,18 +88,15 @@ def _positive(text: str) -> int:
 def cmd_run(args: argparse.Namespace) -> int:
     from sweep.cluster_process import start_for
 
-    # first, so that an embedded dask cluster comes up during the imports and the planning below
+    # first, so that an embedded dask cluster comes up during the imports and the planning below;
+    # the run owns it from here (and a process that dies before lets it go by dying)
     cluster = start_for(args.spec, args.backend, args.workers, args.scheduler)
-    try:
-        from sweep.run import RunOptions, run_sweep
+    from sweep.run import RunOptions, run_sweep
 
-        options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
-                             retry_failed=args.retry_failed, claim=args.claim,
-                             accept_changed_data=args.accept_changed_data, progress=args.progress)
-        summary = run_sweep(args.spec, options, cluster=cluster)
-    finally:
-        if cluster is not None:
-            cluster.stop(wait=False)  # a no-op once the run has stopped it
+    options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
+                         retry_failed=args.retry_failed, claim=args.claim,
+                         accept_changed_data=args.accept_changed_data, progress=args.progress)
+    summary = run_sweep(args.spec, options, cluster=cluster)
     if args.json:
         print(json.dumps(summary.__dict__))
     else:

@@ -13,7 +13,7 @@ driver rather than inside it.
 
 Lifetime: the cluster process lives while the driver holds the write end
 of a pipe. :meth:`ClusterProcess.stop` closes it and the process closes
-the cluster (the nannies stop their workers); when the driver dies, even by
+the cluster (the nannies stop their workers) on its own; when the driver dies, even by
 SIGKILL, the pipe closes all the same. Ctrl-C is the driver's to handle:
 the cluster process ignores SIGINT.
 """
@@ -23,14 +23,13 @@ from __future__ import annotations
 import os
 import select
 import signal
-import sys
-import threading
 import time
 from typing import Any
 
 from sweep.errors import FoldsweepError
+from sweep.forking import can_fork, fork_call
 
-#: seconds to wait for the cluster to come up, and for it to close
+#: seconds to wait for the cluster to come up, and for it to close once let go
 START_SECONDS = 120.0
 STOP_SECONDS = 15.0
 
@@ -47,26 +46,20 @@ class ClusterProcess:
 
     @classmethod
     def start(cls, workers: int, memory_limit: str | None) -> ClusterProcess | None:
-        """Fork the cluster process now; None where forking is not safe here (another thread runs,
-        whose locks the child could inherit held) or not possible (no ``os.fork``)."""
-        if not hasattr(os, "fork") or threading.active_count() > 1:
+        """Fork the cluster process now; None where forking is not safe or not possible here
+        (:func:`sweep.forking.can_fork`)."""
+        if not can_fork():
             return None
         _reap()
         address_r, address_w = os.pipe()
         alive_r, alive_w = os.pipe()
-        sys.stdout.flush()  # nothing buffered gets written twice
-        sys.stderr.flush()
-        pid = os.fork()
-        if pid == 0:
-            code = 1
-            try:
-                os.close(address_r)
-                os.close(alive_w)
-                code = _serve(workers, memory_limit, address_w, alive_r)
-            except BaseException as exc:  # noqa: BLE001 - reported to the driver, which raises it
-                _send(address_w, f"{type(exc).__name__}: {exc}")
-            finally:
-                os._exit(code)  # never the driver's exit handlers, nor its buffered output
+
+        def body() -> int:
+            os.close(address_r)
+            os.close(alive_w)
+            return _serve(workers, memory_limit, address_w, alive_r)
+
+        pid = fork_call(body)
         os.close(address_w)
         os.close(alive_r)
         return cls(pid, address_r, alive_w)
@@ -85,28 +78,17 @@ class ClusterProcess:
             self._address = line
         return self._address
 
-    def stop(self, timeout: float = STOP_SECONDS, *, wait: bool = True) -> None:
-        """Ask the process to close the cluster (the nannies stop their workers, which frees
-        their semaphores and scratch directories) and wait for it, killing it if it takes
-        longer than ``timeout``. ``wait=False`` for a run that never used it (nothing to do, bad
-        input), or once every result is committed: it finishes starting if need be, then closes, on
-        its own, while the driver goes on. Nothing the second time."""
+    def stop(self) -> None:
+        """Let the process go: it closes the cluster on its own (the nannies stop their workers,
+        which frees their semaphores and scratch directories), finishing its start first if need
+        be, while the driver goes on. For a run that never used it (nothing to do, bad input) or
+        once every result is committed. Nothing the second time."""
         if self._alive_w is None:
             return
         os.close(self._alive_w)
         self._alive_w = None
-        if not wait:
-            _UNREAPED.append(self.pid)  # reaped by a later start (or gone with this process)
-            self._gone = True  # no longer ours to signal: its pid may be reused once reaped
-            return
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            pid, _ = os.waitpid(self.pid, os.WNOHANG)
-            if pid:
-                self._gone = True
-                return
-            time.sleep(0.01)
-        self.kill()
+        _UNREAPED.append(self.pid)  # reaped by a later start (or gone with this process)
+        self._gone = True  # no longer ours to signal: its pid may be reused once reaped
 
     def kill(self) -> None:
         """End the process now (its workers follow it); nothing once it has been reaped or let go."""
@@ -152,14 +134,19 @@ def start_for(spec_path: Any, backend: str, workers: int | None, scheduler: str 
 
 
 def _serve(workers: int, memory_limit: str | None, address_w: int, alive_r: int) -> int:
-    """In the cluster process: start the cluster, report its address, close it when told."""
+    """In the cluster process: start the cluster, report its address (or why it did not start),
+    close it when told."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    import dask
+    try:
+        import dask
 
-    from sweep.dask_executor import EMBEDDED_CONFIG, local_cluster
+        from sweep.dask_executor import EMBEDDED_CONFIG, local_cluster
 
-    dask.config.set(EMBEDDED_CONFIG)  # for this process's lifetime; the nannies pass it on
-    cluster = local_cluster(workers, memory_limit)
+        dask.config.set(EMBEDDED_CONFIG)  # for this process's lifetime; the nannies pass it on
+        cluster = local_cluster(workers, memory_limit)
+    except Exception as exc:  # noqa: BLE001 - reported to the driver, which raises it
+        _send(address_w, f"{type(exc).__name__}: {exc}")
+        return 1
     _send(address_w, cluster.scheduler_address)
     while os.read(alive_r, 1):  # until the driver closes its end, or dies
         pass

@@ -19,8 +19,8 @@ copies were lost, the scheduler restarted) goes back without counting an
 attempt against the job.
 
 The embedded cluster's worker processes are forked from a server process
-that has already imported what a worker needs (:mod:`sweep.forking`). Its settings (``EMBEDDED_CONFIG``) turn off what only a
-dashboard would show: with dask's defaults, two idle workers and their
+that has already imported what a worker needs (:mod:`sweep.forking`). Its
+settings (``EMBEDDED_CONFIG``) turn off what only a dashboard would show: with dask's defaults, two idle workers and their
 scheduler use about 20 % of a core (measured: driver 9 %, workers 11.5 %;
 with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
 """
@@ -142,7 +142,7 @@ class DaskExecutor(Executor):
     def close(self, *, kill: bool = False) -> None:
         self.client.close()
         if self.process is not None:
-            self.process.stop(wait=False)  # every result is committed: it closes the cluster on its own
+            self.process.stop()  # every result is committed: it closes the cluster on its own
         if self.cluster is not None:
             self.cluster.close()
         if self._config is not None:

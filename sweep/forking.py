@@ -23,9 +23,34 @@ import os
 import socket
 import sys
 import threading
+from typing import Callable
 
 #: the attributes of multiprocessing.forkserver.ForkServer a driver-made server must set
 _SERVER_STATE = ("_forkserver_address", "_forkserver_alive_fd", "_forkserver_pid")
+
+
+def can_fork() -> bool:
+    """Whether this process may fork now: it can, and no other thread runs (a fork could copy a
+    lock that another thread holds, and the child would wait on it for ever)."""
+    return hasattr(os, "fork") and threading.active_count() == 1
+
+
+def fork_call(body: Callable[[], int]) -> int:
+    """Fork; the child runs ``body`` and exits with the code it returns (or raises as
+    ``SystemExit``), never running the parent's exit handlers nor writing its buffered output.
+    Returns the child's pid."""
+    sys.stdout.flush()  # nothing buffered gets written twice
+    sys.stderr.flush()
+    pid = os.fork()
+    if pid == 0:
+        code = 1
+        try:
+            code = body()
+        except SystemExit as stop:
+            code = stop.code if isinstance(stop.code, int) else 0
+        finally:
+            os._exit(code)
+    return pid
 
 
 def ensure_fork_server(modules: list[str]) -> None:
@@ -55,7 +80,7 @@ def _fork_server_here() -> bool:
     if server._forkserver_pid is not None:
         forkserver.ensure_running()  # already made (by us or the standard way): restarted if it died
         return True
-    if threading.active_count() > 1:  # a fork now could copy a lock some other thread holds
+    if not can_fork():
         return False
     resource_tracker.ensure_running()  # before the fork, so that server and workers share it
     address = connection.arbitrary_address("AF_UNIX")
@@ -66,16 +91,13 @@ def _fork_server_here() -> bool:
         listener.listen()
         # every client holds the write end of the "alive" pipe: when all are gone, the server stops
         alive_r, alive_w = os.pipe()
-        pid = os.fork()
-        if pid == 0:  # the server: serve fork requests until the driver and its workers are gone
-            code = 1
-            try:
-                os.close(alive_w)
-                forkserver.main(listener.fileno(), alive_r, [])
-            except SystemExit as stop:
-                code = stop.code if isinstance(stop.code, int) else 0
-            finally:
-                os._exit(code)  # never the driver's exit handlers, nor its buffered output
+
+        def serve() -> int:  # until the driver and its workers are gone (it ends with SystemExit)
+            os.close(alive_w)
+            forkserver.main(listener.fileno(), alive_r, [])
+            return 0
+
+        pid = fork_call(serve)
         os.close(alive_r)
     server._forkserver_address = address
     server._forkserver_alive_fd = alive_w

@@ -168,7 +168,7 @@ def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
         return _run(spec_path, options, out, started, cluster)
     finally:
         if cluster is not None:
-            cluster.stop(wait=False)  # unless the run used (and stopped) it: nothing to do, or bad input
+            cluster.stop()  # unless the run used (and stopped) it: nothing to do, or bad input
 
 
 def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, cluster: Any) -> RunSummary:
@@ -216,10 +216,8 @@ class _Loop:
         # the executor may fork this process (sweep.forking): no database connection is copied
         store.drop_connections()
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
-                                      memory_limit=self.spec.memory_limit,
-                                      **({"cluster": cluster} if cluster is not None else {}),
+                                      memory_limit=self.spec.memory_limit, cluster=cluster,
                                       **options.executor_options)
-        self.batch = 1  # jobs per task; grows when jobs turn out to be short
         self.job_seconds: float | None = None
         self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows
         self.configs = inputs.plan.by_config
@@ -289,7 +287,10 @@ class _Loop:
         the first results tell how long a job takes)."""
         if self.options.claim:
             return self.options.claim
-        return self.executor.workers * (1 if self.job_seconds is None else 4 * self.batch)
+        if self.job_seconds is None:
+            return self.executor.workers
+        batch = task_size(self.unclaimed, self.job_seconds, self.executor.task_seconds, self.executor.workers)
+        return 4 * self.executor.workers * batch
 
     def _dispatch(self) -> None:
         held = [c for batch in self.inflight.values() for c in batch]
@@ -353,13 +354,11 @@ class _Loop:
             return
         self.finished.extend(results)
         self.ran += len(results)
-        self._learn_batch(results)
+        self._learn_job_seconds(results)
 
-    def _learn_batch(self, results: list[Any]) -> None:
+    def _learn_job_seconds(self, results: list[Any]) -> None:
         seconds = sum(r.finished_at - r.started_at for r in results) / len(results)
         self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
-        self.batch = task_size(self.unclaimed, self.job_seconds, self.executor.task_seconds,
-                               self.executor.workers)
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
         reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"

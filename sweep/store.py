@@ -440,16 +440,15 @@ class Store:
 
     def done_results(self, *, scheme: str, fingerprints: Sequence[str], repeats: int, k: int,
                      figures: bool = True, keys: bool = True, hosts: bool = True,
-                     metrics: Sequence[str] | None = None) -> tuple[list[tuple[Any, ...]], list[str]]:
-        """(rows, column names) of the results on these datasets (fingerprints) and folds.
+                     metrics: Sequence[str]) -> tuple[list[tuple[Any, ...]], list[str]]:
+        """(rows, column names) of the results on these datasets (fingerprints) and folds, with the
+        ``metrics`` columns.
 
         One scan of the results table, no join. The caller keeps the rows of
         its plan's configurations (see ``versions``).
         """
         r = results_table.c
-        names = metrics if metrics is not None else ("accuracy", "balanced_accuracy", "kappa", "train_accuracy",
-                                                     "fit_seconds", "predict_seconds")
-        columns = [r.dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in names)]
+        columns = [r.dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in metrics)]
         columns = ([r.key] if keys else []) + columns + ([r.worker_version, r.host] if hosts else [])
         if figures:
             columns.append(r.figures)
@@ -485,10 +484,6 @@ class Store:
         with self.engine.connect() as conn:
             return [tuple(r) for r in conn.execute(sa.select(j.key, j.error, j.timed_out).where(
                 j.sweep == sweep, j.active, j.state == "failed"))]
-
-    def model_text(self, key: str) -> str | None:
-        with self.engine.connect() as conn:
-            return conn.execute(sa.select(results_table.c.model_text).where(results_table.c.key == key)).scalar()
 
     def stored_model(self, key: str) -> dict[str, Any] | None:
         """The result row of job ``key`` as far as a reader of its model wants it (None: no result)."""

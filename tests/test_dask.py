@@ -169,19 +169,6 @@ def test_unreachable_scheduler_is_one_line_exit_2(tmp_path: Path) -> None:
     assert len(lines) == 1 and "cannot reach the dask scheduler" in lines[0], proc.stderr
 
 
-SLOW_SPEC = """
-name = "dask-slow"
-[folds]
-k = 3
-[[dataset]]
-name = "iris"
-builtin = "iris"
-[[model]]
-worker = "tests.plugin_workers:SLOW_CENTROID"
-grid = { n_features = [1, 2, 3, 4] }
-"""
-
-
 @pytest.mark.slow
 def test_driver_sigkilled_leaves_no_cluster_process_behind(tmp_path: Path) -> None:
     # common practice: a killed parent must not leave its helper processes running (orphans would
@@ -193,9 +180,10 @@ def test_driver_sigkilled_leaves_no_cluster_process_behind(tmp_path: Path) -> No
     import psutil
 
     from tests.conftest import start_foldsweep
+    from tests.test_cli import one_dataset
 
     spec = tmp_path / "slow.toml"
-    spec.write_text(SLOW_SPEC)
+    spec.write_text(one_dataset("{ n_features = [1, 2, 3, 4] }"))
     proc = start_foldsweep("run", spec, "--backend", "dask", "--workers", "2", "--progress", "none",
                            env={"FOLDSWEEP_TEST_DELAY": "0.5"})
     try:
