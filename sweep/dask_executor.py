@@ -1,13 +1,19 @@
 """The dask.distributed executor: an embedded LocalCluster, or an existing scheduler.
 
+``foldsweep run --backend dask`` runs the embedded cluster and this executor in a process of
+their own where it can (:mod:`sweep.cluster_process`, reached through :mod:`sweep.relay`), in
+the driver where it cannot fork safely; with ``--scheduler`` this executor is in the driver.
+
 - Embedded (no address): worker *processes*, one thread each (the work is
   CPU-bound Python and numpy), on loopback TCP, a memory limit per worker
   (the spec's ``memory_limit``, else the machine's memory split evenly).
 - Existing cluster (``--scheduler tcp://HOST:PORT``): the jobs run wherever
   that scheduler places them; the worker count is the cluster's thread count.
 
-Each dataset is scattered once to every worker (``broadcast=True``) and
-every job refers to it, so no dataset travels with each job. A worker that
+Each dataset given to :meth:`DaskExecutor.share` is scattered once to every
+worker (``broadcast=True``) and every job refers to it, so no dataset
+travels with each job (the embedded cluster's own process is handed files
+instead: :mod:`sweep.relay`). A worker that
 starts later (a restart, a new batch job) fetches it from a peer; should
 every copy die with its workers, the dataset is scattered again before the
 next job that needs it. The run loop keeps a bounded window of futures in
@@ -31,7 +37,6 @@ import concurrent.futures as cf
 import queue
 from typing import Any, Iterable
 
-from sweep.cluster_process import ClusterProcess
 from sweep.errors import StoreError
 from sweep.executors import JOB_MODULES, Executor
 from sweep.forking import ensure_fork_server
@@ -70,12 +75,11 @@ class DaskExecutor(Executor):
     task_seconds = 1.0
 
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
-                 cluster: ClusterProcess | None = None, **_: Any) -> None:
+                 **_: Any) -> None:
         import dask
         from distributed import Client
 
         self.cluster: Any = None
-        self.process = None
         self._config: Any = None
         self._finished: queue.SimpleQueue[Any] = queue.SimpleQueue()
         #: fingerprint -> (dataset, the future of its scattered copies)
@@ -87,13 +91,9 @@ class DaskExecutor(Executor):
                 raise StoreError(f"--scheduler {scheduler}: cannot reach the dask scheduler: {exc}") from None
             self.workers = max(1, sum(self.client.nthreads().values()))
             return
-        self._config = dask.config.set(EMBEDDED_CONFIG)  # the client's side of it
-        self.process = cluster or ClusterProcess.start(workers, memory_limit)
-        if self.process is not None:
-            self.client = Client(self.process.address())
-        else:  # this process cannot fork safely: the cluster runs in it
-            self.cluster = local_cluster(workers, memory_limit)
-            self.client = Client(self.cluster)
+        self._config = dask.config.set(EMBEDDED_CONFIG)  # while the cluster lives
+        self.cluster = local_cluster(workers, memory_limit)
+        self.client = Client(self.cluster)
         self.workers = workers
 
     def share(self, data: Any) -> Any:
@@ -129,6 +129,10 @@ class DaskExecutor(Executor):
             pass
         return done & pending  # the others were collected already (through the first line)
 
+    def wake(self) -> None:
+        """Make a :meth:`wait` in another thread return now (with what it has)."""
+        self._finished.put(None)  # never among the futures waited for
+
     def is_worker_death(self, exc: BaseException) -> bool:
         from distributed.scheduler import KilledWorker
 
@@ -139,12 +143,10 @@ class DaskExecutor(Executor):
 
         return isinstance(exc, KilledWorker)
 
-    def close(self, *, kill: bool = False) -> None:
+    def close(self, *, kill: bool = False, timeout: float | None = None) -> None:
         self.client.close()
-        if self.process is not None:
-            self.process.stop()  # every result is committed: it closes the cluster on its own
         if self.cluster is not None:
-            self.cluster.close()
+            self.cluster.close(timeout=timeout)
         if self._config is not None:
             self._config.__exit__(None, None, None)
 

@@ -66,6 +66,23 @@ class InProcessExecutor(Executor):
         return future
 
 
+class FileShare:
+    """Datasets shipped once to pickle files in a scratch directory that worker processes on this
+    host load and keep (:class:`workers.job.DataRef`, cached per process by fingerprint)."""
+
+    def __init__(self) -> None:
+        self.dir = tempfile.mkdtemp(prefix="foldsweep-data-")
+
+    def share(self, data: Any) -> DataRef:
+        path = os.path.join(self.dir, f"{data.fingerprint}.pickle")
+        with open(path, "wb") as handle:
+            pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
+        return DataRef(path, data.fingerprint)
+
+    def remove(self) -> None:
+        shutil.rmtree(self.dir, ignore_errors=True)
+
+
 class JoblibExecutor(Executor):
     """Worker processes from joblib's loky backend (the embedded default)."""
 
@@ -75,13 +92,10 @@ class JoblibExecutor(Executor):
         self.workers = workers
         self._get = lambda: _loky_pool(workers)
         self._pool = self._get()
-        self._dir = tempfile.mkdtemp(prefix="foldsweep-data-")
+        self._files = FileShare()
 
     def share(self, data: Any) -> DataRef:
-        path = os.path.join(self._dir, f"{data.fingerprint}.pickle")
-        with open(path, "wb") as handle:
-            pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
-        return DataRef(path, data.fingerprint)
+        return self._files.share(data)
 
     def submit(self, jobs: list[Job], handle: Any) -> cf.Future[Any]:
         try:
@@ -98,7 +112,7 @@ class JoblibExecutor(Executor):
     def close(self, *, kill: bool = False) -> None:
         if kill:
             _shutdown_killing(self._pool)
-        shutil.rmtree(self._dir, ignore_errors=True)
+        self._files.remove()
 
 
 #: modules every worker process needs (imported by a fork server that had to start the standard way)
@@ -149,10 +163,21 @@ def _joblib(workers: int, **options: Any) -> Executor:
     return InProcessExecutor() if workers == 1 else JoblibExecutor(workers)
 
 
-def _dask(workers: int, **options: Any) -> Executor:
+def _dask(workers: int, scheduler: str | None = None, memory_limit: str | None = None, cluster: Any = None,
+          **options: Any) -> Executor:
+    """An existing scheduler's client, else the embedded cluster: in a process of its own
+    (``cluster``, or one started now) reached through a relay, in this process if it cannot fork."""
+    if not scheduler:
+        from sweep.cluster_process import ClusterProcess
+
+        process = cluster or ClusterProcess.start(workers, memory_limit)
+        if process is not None:
+            from sweep.relay import RelayedExecutor
+
+            return RelayedExecutor(process, workers)
     from sweep.dask_executor import DaskExecutor
 
-    return DaskExecutor(workers, **options)
+    return DaskExecutor(workers, scheduler=scheduler, memory_limit=memory_limit, **options)
 
 
 EXECUTORS: dict[str, Callable[..., Executor]] = {

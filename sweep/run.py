@@ -22,7 +22,9 @@ and a job retried after a death runs alone so that the blame is exact), a
 lease is due (renewed for the jobs in hand; the jobs of other drivers whose
 lease expired, or who died on this host, go back to pending, as they also
 do when this driver's own work runs out), Ctrl-C (stop dispatching, commit
-what finished, give the rest back as pending).
+what finished, give the rest back as pending), an error the loop cannot go
+on from, such as the embedded cluster's process dying (the same, then the
+error is raised).
 """
 
 from __future__ import annotations
@@ -261,6 +263,9 @@ class _Loop:
         except KeyboardInterrupt:
             self.interrupted = True
             self._stop()
+        except Exception:
+            self._abandon()
+            raise
         finally:
             self.progress.close()
 
@@ -280,6 +285,20 @@ class _Loop:
         # everything still held, including jobs claimed but not yet submitted when the signal came
         self.store.release_all(self.owner)
         self.executor.close(kill=True)
+
+    def _abandon(self) -> None:
+        """After an error the loop cannot go on from (the embedded cluster stopped, the store
+        failed): keep what finished, give the rest back as pending, as far as the store still
+        lets it (else the leases expire, and the next run re-queues those jobs)."""
+        try:
+            self._commit()
+            self.store.release_all(self.owner)
+        except Exception:  # noqa: BLE001 - the error being raised says what went wrong
+            pass
+        try:
+            self.executor.close(kill=True)
+        except Exception:  # noqa: BLE001 - as above
+            pass
 
     @property
     def window(self) -> int:
@@ -361,7 +380,8 @@ class _Loop:
         self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
 
     def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
-        reason = f"worker process died ({type(exc).__name__}: {_death_message(exc)})"
+        kind = getattr(exc, "kind", type(exc).__name__)  # a relayed loss names the engine's exception
+        reason = f"worker process died ({kind}: {_death_message(exc)})"
         blamed = self.executor.blames_job(exc)
         if blamed and claimed.attempts >= self.spec.max_attempts:
             self.give_up[claimed.key] = f"{reason}; gave up after {claimed.attempts} attempts"

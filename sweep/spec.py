@@ -93,6 +93,19 @@ class Spec:
 def load_spec(path: str | Path) -> Spec:
     """Read and validate a spec file, or raise :class:`SpecError` naming the file and key."""
     path = Path(path)
+    doc, digest = _read(path)
+    return parse_spec(doc, path, digest)
+
+
+def read_memory_limit(path: str | Path) -> str | None:
+    """Only the spec's ``memory_limit``, checked (what an embedded dask cluster needs before the rest
+    of the spec is validated, which imports the workers' modules)."""
+    doc, _ = _read(Path(path))
+    return _memory_limit(doc.get("memory_limit"), str(path))
+
+
+def _read(path: Path) -> tuple[dict[str, Any], str]:
+    """The TOML document at ``path`` and the sha256 of its bytes."""
     try:
         raw_bytes = path.read_bytes()
     except OSError as exc:
@@ -101,7 +114,7 @@ def load_spec(path: str | Path) -> Spec:
         doc = tomllib.loads(raw_bytes.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise SpecError(f"{path}: not valid TOML: {exc}") from None
-    return parse_spec(doc, path, hashlib.sha256(raw_bytes).hexdigest())
+    return doc, hashlib.sha256(raw_bytes).hexdigest()
 
 
 def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:

@@ -8,7 +8,9 @@
     changed;
 (d) two drivers started together on one spec and one SQLite tracker: every job done exactly once,
     none ran to completion twice, in about half the wall time of one driver;
-(e) a job over its ``time_limit`` is stopped and recorded as timed out (joblib and dask).
+(e) a job over its ``time_limit`` is stopped and recorded as timed out (joblib and dask);
+(f) the embedded dask cluster's own process SIGKILLed mid-run: the driver stops with a one-line
+    error, keeps every finished result, gives the other jobs back; a re-run does exactly the rest.
 
 Each test prints its figures (``pytest -s``): jobs planned, done, duplicates, lost results and the
 re-runs the fault caused (runs to completion beyond one per job, from the worker's own log).
@@ -166,6 +168,48 @@ def test_dask_worker_sigkilled_mid_job_its_jobs_run_elsewhere(tmp_path: Path) ->
     extra, twice = reruns(tmp_path, planned)
     figures("a dask worker SIGKILL", planned=planned, done=counts["done"], duplicates=0, lost=0,
             jobs_with_second_attempt=retried, reruns_to_completion=extra, starts=len(lines(tmp_path / "started.log")))
+
+
+def test_dask_cluster_process_sigkilled_keeps_results_and_gives_the_rest_back(tmp_path: Path) -> None:
+    # common practice: losing the whole engine mid-run (here the embedded cluster's own process, as an
+    # out-of-memory killer would) must not lose finished work nor leave jobs held by nobody
+    import psutil
+
+    spec = write_spec(tmp_path, configs=10, seconds=0.3)
+    planned = 20
+    env = watch_env(tmp_path)
+    proc = start_foldsweep("run", spec, "--backend", "dask", "--workers", "2", "--progress", "none", env=env)
+    try:
+        wait_for_lines(tmp_path / "completed.log", 4)
+        time.sleep(1.2)  # at least one commit (every second) has happened
+        cluster = [p for p in psutil.Process(proc.pid).children() if p.children()]
+        assert len(cluster) == 1, [p.cmdline() for p in psutil.Process(proc.pid).children()]
+        helpers = cluster[0].children(recursive=True)
+        os.kill(cluster[0].pid, signal.SIGKILL)
+        out, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGKILL)
+    assert proc.returncode == 2, (proc.returncode, out, err)
+    # besides our one line, only multiprocessing's resource tracker may speak: it reports (and
+    # removes) the semaphores that the killed process could not free
+    ours = [line for line in err.strip().splitlines()
+            if "resource_tracker" not in line and not line.strip().startswith("warnings.warn(")]
+    assert len(ours) == 1 and "embedded dask cluster stopped" in ours[0], err
+    states = dict(query(store_of(spec), "SELECT state, count(*) FROM jobs GROUP BY state"))
+    assert states.get("running", 0) == 0, states  # nothing is left claimed by the dead run
+    counts = check_exactly_once(spec)
+    kept = counts["done"]
+    assert kept >= 2, counts
+    gone, alive = psutil.wait_procs(helpers, timeout=20)  # its workers and fork server follow it
+    assert alive == [], [(p.pid, p.cmdline()) for p in alive]
+    summary = run_json(spec, "--backend", "dask", "--workers", "2", env=env)  # a re-run does the rest
+    assert summary["ran"] == planned - kept
+    counts = check_exactly_once(spec)
+    assert counts == {"planned": planned, "done": planned, "failed": 0, "duplicates": 0}
+    extra, twice = reruns(tmp_path, planned)
+    figures("a dask cluster process SIGKILL", planned=planned, done=counts["done"], duplicates=0, lost=0,
+            kept_from_killed_run=kept, reruns_to_completion=extra)
 
 
 # ---- (b) a job that kills its worker every time ---------------------------------------------------
