@@ -24,7 +24,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from bench_pipeline import env, spec_text  # noqa: E402 - the same spin-worker spec and environment
+from bench_pipeline import env, precompile, spec_text  # noqa: E402 - the same spec, environment, bytecode
 
 
 def write_spec(folder: Path, jobs: int, ms: float) -> Path:
@@ -59,6 +59,7 @@ def main() -> None:
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--repeat", type=int, default=3, help="runs of each backend, interleaved (median shown)")
     args = parser.parse_args()
+    precompile()
     ideal = args.jobs * args.ms / 1000 / args.workers
     w = str(args.workers)
     with tempfile.TemporaryDirectory(prefix="bench-cluster-") as tmp:

@@ -152,12 +152,18 @@ class DaskExecutor(Executor):
 
 
 def local_cluster(workers: int, memory_limit: str | None) -> Any:
-    """The embedded cluster in this process (when it cannot be forked off: :mod:`sweep.cluster_process`)."""
+    """The embedded cluster, in this process: the cluster process (:mod:`sweep.cluster_process`), or
+    a driver that cannot fork it off."""
     import distributed.nanny  # noqa: F401 - in this process, so in a fork server made from it
     import distributed.utils
+    import distributed.versions
     import distributed.worker  # noqa: F401
     from distributed import LocalCluster
 
+    # the package versions every worker reports when it registers and the scheduler and client
+    # check: importlib.metadata lookups, cached per process, 30-60 ms each (measured); looked up once
+    # here, before the fork server is forked, every worker starts with them
+    distributed.versions.get_versions()
     ensure_fork_server(WORKER_MODULES)
     distributed.utils._forkserver_preload_set = True  # the preload is ours (no pandas import here)
     # the scheduler's HTTP server on a free loopback port: never the shared 8787
