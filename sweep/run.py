@@ -280,7 +280,10 @@ class _Loop:
     def _stop(self) -> None:
         print("interrupted: committing finished jobs, giving the rest back as pending", file=self.out, flush=True)
         for future in [f for f in self.inflight if f.done()]:
-            self._collect(future)
+            try:
+                self._collect(future)
+            except KeyboardInterrupt:  # Ctrl-C reached its worker too (the whole process group):
+                pass  # its jobs are given back below, with every other one still held
         self._commit()
         # everything still held, including jobs claimed but not yet submitted when the signal came
         self.store.release_all(self.owner)

@@ -407,14 +407,17 @@ def test_a_job_over_its_time_limit_is_failed_as_timed_out(tmp_path: Path) -> Non
 # ---- (9) Ctrl-C -----------------------------------------------------------------------------
 
 @pytest.mark.slow
-def test_ctrl_c_keeps_finished_results_and_leaves_the_rest_pending(tmp_path: Path) -> None:
+@pytest.mark.parametrize("backend", ["joblib", "dask"])
+def test_ctrl_c_keeps_finished_results_and_leaves_the_rest_pending(tmp_path: Path, backend: str) -> None:
     spec = write_spec(tmp_path, SLOW)
     db = spec.with_suffix(".sqlite")
-    proc = start_foldsweep("run", spec, "--workers", "2", "--progress", "none",
+    proc = start_foldsweep("run", spec, "--workers", "2", "--backend", backend, "--progress", "none",
                            env={"FOLDSWEEP_TEST_DELAY": "0.3"})
     try:
         wait_for_done(proc, db, 2)
-        os.kill(proc.pid, signal.SIGINT)  # what Ctrl-C sends to the driver
+        # what Ctrl-C on a terminal sends: SIGINT to the whole foreground process group (the driver
+        # and every process it started; common practice)
+        os.killpg(proc.pid, signal.SIGINT)
         out, err = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
