@@ -104,7 +104,9 @@ class RelayedExecutor(Executor):
             while True:
                 message = self._conn.recv()
                 with self._lock:
-                    future = self._futures.pop(message[1])
+                    future = self._futures.pop(message[1], None)
+                if future is None:  # not ours (cannot happen with this module's cluster side)
+                    continue
                 if message[0] == "done":
                     future.set_result(message[2])
                 else:
