@@ -19,7 +19,7 @@ from importlib import metadata
 from pathlib import Path
 from typing import Any, Mapping
 
-CACHE_FORMAT = "1"
+CACHE_FORMAT = "2"  # 2: with missing = "impute", empty cells stay NaN
 
 
 def cache_dir() -> Path | None:

@@ -59,7 +59,8 @@ DATASET_KEYS: dict[str, str] = {
     "nominal": "files only: columns to treat as nominal (non-numeric columns are nominal anyway)",
     "drop": "files only: columns to ignore",
     "missing": ("files only: what to do with empty cells (and pandas' NA spellings such as NA, NaN, null): "
-                "refuse (default) | drop_rows | impute (median for numeric, most frequent for nominal)"),
+                "refuse (default) | drop_rows | impute (in each fold job, from its training part: median for "
+                "numeric, most frequent for nominal)"),
 }
 
 SOURCES = ("builtin", "synthetic", "file")
@@ -101,6 +102,8 @@ class Dataset:
         The name the spec gives it.
     X : ndarray of float64, shape (n_samples, n_features)
         Features; a nominal column holds category codes ``0..m-1`` as floats.
+        With ``missing = "impute"`` an empty cell stays NaN: each fold job
+        fills it from its own training part (:mod:`workers.impute`).
     y : ndarray of int64, shape (n_samples,)
         Class codes ``0..k-1``; code ``i`` is ``classes[i]``.
     feature_names : tuple of str
@@ -160,7 +163,8 @@ class Dataset:
         source : str, default="arrays"
             Where the data came from, in words.
         """
-        X = _frozen(np.array(X, dtype=np.float64, order="C") + 0.0)  # + 0.0 folds -0.0 into 0.0
+        X = np.array(X, dtype=np.float64, order="C") + 0.0  # + 0.0 folds -0.0 into 0.0
+        X = _frozen(np.where(np.isnan(X), np.nan, X))  # one NaN bit pattern, for the fingerprint
         y = _frozen(np.array(y, dtype=np.int64))
         p = X.shape[1] if X.ndim == 2 else 0
         nominal_t = tuple(bool(v) for v in nominal) if nominal is not None else (False,) * p
@@ -567,8 +571,9 @@ def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, wh
     for j, col in enumerate(features):
         series = frame[col]
         if col in nominal or not _is_numeric(series):
-            codes, cats = _encode_nominal(series)
-            X[:, j], cat = codes, tuple(cats)
+            gaps = series.isna().to_numpy()  # only with missing = "impute": left NaN
+            codes, cats = _encode_nominal(series[~gaps])
+            X[~gaps, j], X[gaps, j], cat = codes, np.nan, tuple(cats)
         else:
             X[:, j], cat = _numeric(series, col, where), None
         is_nominal.append(cat is not None)
@@ -596,8 +601,8 @@ def _is_numeric(series) -> bool:
 
 
 def _numeric(series, col: str, where: str) -> np.ndarray:
-    values = series.to_numpy(dtype=np.float64, na_value=np.nan)
-    bad = int(np.count_nonzero(~np.isfinite(values)))
+    values = series.to_numpy(dtype=np.float64, na_value=np.nan)  # NaN: an empty cell left to impute
+    bad = int(np.count_nonzero(np.isinf(values)))
     if bad:
         raise DatasetError(f"{where}: column {col!r} holds {bad} non-finite value(s) (inf); only finite numbers are allowed")
     return values
@@ -641,22 +646,7 @@ def _apply_missing(frame, target: str, policy: str, nominal: set[str], where: st
     if target in counts.index:
         raise DatasetError(f"{where}: target column {target!r} has {int(counts[target])} missing value(s); "
                            f"'impute' never invents a class: use missing = 'drop_rows'")
-    return _impute(frame, list(counts.index), nominal, where)
-
-
-def _impute(frame, columns: list[str], nominal: set[str], where: str):
-    """Median for numeric columns, most frequent (first in sorted order on ties) for nominal ones."""
-    frame = frame.copy()
-    for col in columns:
-        series = frame[col]
-        present = series.dropna()
-        if present.empty:
+    for col in counts.index:
+        if int(counts[col]) == len(frame):
             raise DatasetError(f"{where}: column {col!r} has no values at all to impute from; list it in 'drop'")
-        if col not in nominal and _is_numeric(series):
-            fill = float(np.median(present.to_numpy(dtype=np.float64)))
-        else:
-            codes, cats = _encode_nominal(present)
-            mode_text = cats[int(np.argmax(np.bincount(codes, minlength=len(cats))))]
-            fill = next(v for v in present if _canonical_text(v) == mode_text)
-        frame[col] = series.fillna(fill)
-    return frame
+    return frame  # the empty cells stay NaN: each fold job fills them from its training part (workers.impute)

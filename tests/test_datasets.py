@@ -264,15 +264,69 @@ def test_missing_drop_rows(tmp_path):
     np.testing.assert_array_equal(data.X[:, 0], kept["width (cm)"].to_numpy())
 
 
-def test_missing_impute_median_and_most_frequent(tmp_path):
+def whole_file(data: Dataset) -> np.ndarray:
+    """The dataset's X filled as one fold job would fill it if every row were a training row."""
+    from workers.impute import fill_from_training
+
+    return fill_from_training(data.X, data.X[:0], data.nominal, data.feature_names)[0]
+
+
+def test_missing_impute_keeps_the_gaps_for_each_fold_job(tmp_path):
     frame = frame_with_gaps()
     data = load(file_entry(write(frame, tmp_path / "x.parquet"), missing="impute"), tmp_path)
-    width = frame["width (cm)"]
+    # loading fills nothing: the gaps reach the jobs as NaN (each fills them from its training part)
+    assert np.isnan(data.X).sum() == 3 and np.isnan(data.X[[1, 4], 0]).all() and np.isnan(data.X[6, 2])
+    assert data.categories[2] == ("clay", "loam", "sand")  # from the present soils only
+    filled = whole_file(data)
     # reference: numpy's median of the present values
-    assert data.X[1, 0] == data.X[4, 0] == np.median(width.dropna())
+    assert filled[1, 0] == filled[4, 0] == np.median(frame["width (cm)"].dropna())
     # most frequent of the present soils: clay 2, loam 3, sand 2 -> loam (pandas' mode)
     assert frame["soil"].mode().tolist() == ["loam"]
-    assert data.categories[2][int(data.X[6, 2])] == "loam"
+    assert data.categories[2][int(filled[6, 2])] == "loam"
+
+
+def test_impute_fills_from_the_training_part_like_scikit_learn(tmp_path):
+    from sklearn.impute import SimpleImputer
+
+    from workers.impute import fill_from_training
+
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(40, 3)).round(2)
+    X[:, 2] = rng.integers(0, 4, size=40)  # a nominal column of codes
+    X[rng.random(X.shape) < 0.2] = np.nan
+    test = np.zeros(40, dtype=bool)
+    test[::4] = True
+    train_part, test_part = fill_from_training(X[~test], X[test], (False, False, True))
+    # reference: scikit-learn's SimpleImputer fitted on the training rows alone, median for the
+    # numeric columns and most frequent (the smallest value on a tie) for the nominal one
+    numeric = SimpleImputer(strategy="median").fit(X[~test][:, :2])
+    nominal = SimpleImputer(strategy="most_frequent").fit(X[~test][:, 2:])
+    np.testing.assert_array_equal(train_part[:, :2], numeric.transform(X[~test][:, :2]))
+    np.testing.assert_array_equal(test_part[:, :2], numeric.transform(X[test][:, :2]))
+    np.testing.assert_array_equal(train_part[:, 2:], nominal.transform(X[~test][:, 2:]))
+    np.testing.assert_array_equal(test_part[:, 2:], nominal.transform(X[test][:, 2:]))
+    # nothing of the test rows leaks into the fill: changing them changes no training statistic
+    other = X[test].copy()
+    other[~np.isnan(other)] += 100.0
+    assert np.array_equal(fill_from_training(X[~test], other, (False, False, True))[0], train_part)
+    # a column with no training value at all is the job's error, named
+    X[~test, 1] = np.nan
+    with pytest.raises(ValueError, match="column 'b' has no value in this fold's training part"):
+        fill_from_training(X[~test], X[test], (False, False, True), ("a", "b", "c"))
+
+
+def test_a_fold_job_on_a_dataset_with_gaps_is_scored(tmp_path):
+    from workers.job import Job, run_job
+
+    frame = frame_with_gaps()
+    data = load(file_entry(write(frame, tmp_path / "x.csv"), missing="impute", drop=[]), tmp_path)
+    from workers.registry import get_worker
+
+    params = {name: p.default for name, p in get_worker("knn").params.items()}
+    job = Job(key="k", worker="knn", params=params, dataset="d", fingerprint=data.fingerprint,
+              repeat=0, fold=0, test_index=np.array([1, 6]), time_limit=None)
+    result = run_job(job, data)  # k-NN refuses NaN (scikit-learn): it is filled before the fit
+    assert result.ok, result.error
 
 
 def test_impute_uses_most_frequent_for_a_numeric_column_declared_nominal(tmp_path):
@@ -283,7 +337,7 @@ def test_impute_uses_most_frequent_for_a_numeric_column_declared_nominal(tmp_pat
                            missing="impute"), tmp_path)
     grade = data.feature_names.index("grade")
     assert data.categories[grade] == ("1", "2", "3")  # 1.0 read back from CSV is spelt as the integer
-    assert data.categories[grade][int(data.X[0, grade])] == "1"
+    assert data.categories[grade][int(whole_file(data)[0, grade])] == "1"
 
 
 def test_impute_fills_a_boolean_column_with_gaps(tmp_path):
@@ -292,7 +346,8 @@ def test_impute_fills_a_boolean_column_with_gaps(tmp_path):
     data = load(file_entry(write(frame, tmp_path / "x.csv"), missing="impute"), tmp_path)
     col = data.feature_names.index("irrigated")
     assert data.categories[col] == ("False", "True")
-    assert data.X[0, col] == data.X[1, col] == 0.0
+    filled = whole_file(data)
+    assert filled[0, col] == filled[1, col] == 0.0
 
 
 def test_impute_a_column_without_any_value(tmp_path):
