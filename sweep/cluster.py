@@ -97,6 +97,16 @@ def parse_walltime(text: str) -> int:
     return seconds + 86400 * int(days or 0)
 
 
+def batch_walltime(kind: str, walltime: str) -> str:
+    """``walltime`` as the batch system reads it: as given for SLURM (sbatch reads every form
+    :func:`parse_walltime` does), ``HH:MM:SS`` for PBS, whose ``-l walltime`` has no days and
+    reads a bare number as seconds, not minutes (``"1-00:30:00"`` -> ``"24:30:00"``)."""
+    seconds = parse_walltime(walltime)  # a malformed one is refused for either
+    if kind != "pbs":
+        return walltime
+    return f"{seconds // 3600:02d}:{seconds % 3600 // 60:02d}:{seconds % 60:02d}"
+
+
 def lifetime_options(walltime: str, margin_seconds: float | None = None) -> list[str]:
     """``--lifetime`` and ``--lifetime-stagger`` for a worker that must leave before ``walltime``.
 
@@ -137,7 +147,8 @@ def jobqueue_options(kind: str, *, cores: int = 1, memory: str = "4GiB", walltim
     _check_kind(kind)
     if cores < 1:
         raise StoreError(f"cores must be a positive integer, got {cores!r}")
-    return dict(cores=cores, processes=cores, memory=memory, walltime=walltime, queue=queue, account=account,
+    return dict(cores=cores, processes=cores, memory=memory, walltime=batch_walltime(kind, walltime),
+                queue=queue, account=account,
                 job_extra_directives=list(job_extra), job_script_prologue=list(prologue),
                 worker_extra_args=lifetime_options(walltime, margin_seconds), interface=interface,
                 python=python or sys.executable, local_directory=local_directory, log_directory=log_directory,

@@ -39,6 +39,19 @@ def test_pbs_script_has_the_requested_resources() -> None:
     assert "--name foldsweep-$PBS_JOBID" in script
 
 
+def test_pbs_walltime_in_slurm_form_is_converted() -> None:
+    # from memory (qsub(1), PBS Pro): -l walltime is [[hours:]minutes:]seconds, without days, and a
+    # bare number is seconds; sbatch(1) -t reads "days-hours:minutes:seconds" and a bare number as minutes
+    script = cluster.cluster_script("pbs", scheduler="tcp://10.1.2.3:8786", cores=1, memory="4GiB",
+                                    walltime="1-00:30:00")
+    assert "#PBS -l walltime=24:30:00" in script, script
+    assert "--lifetime 79380s" in script  # 88200 s less the tenth kept as margin: the same instant
+    slurm = cluster.cluster_script("slurm", scheduler="tcp://10.1.2.3:8786", cores=1, memory="4GiB",
+                                   walltime="90")
+    assert "#SBATCH -t 90" in slurm, slurm  # sbatch reads its own forms: passed as given
+    assert cluster.batch_walltime("pbs", "90") == "01:30:00"  # the same 90 minutes for PBS
+
+
 def test_live_jobqueue_cluster_carries_the_same_recipe() -> None:
     live = cluster.make_cluster("slurm", cores=2, memory="8GiB", walltime="01:00:00")
     try:
