@@ -71,8 +71,9 @@ WORKER_MODULES = ["distributed", "distributed.nanny", "distributed.worker", *JOB
 
 
 class DaskExecutor(Executor):
-    #: the scheduler, the client and the nanny together spend a few ms of the driver's CPU per task
-    task_seconds = 1.0
+    #: the scheduler, the client and the nanny together spend about 13 ms of CPU per task (as in
+    #: sweep.relay): short jobs go 2 s of work to a task
+    task_seconds = 2.0
 
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
                  **_: Any) -> None:
