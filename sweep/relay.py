@@ -10,7 +10,8 @@ tasks over a socket pair instead, and gets their outcomes back:
 driver -> cluster     ``("submit", task, jobs, dataset handle)``
 cluster -> driver     ``("ready",)`` or ``("failed", why)`` first, then
                       ``("done", task, results)`` or
-                      ``("lost", task, kind, message, death, blamed)``
+                      ``("lost", task, kind, message, death, blamed)``;
+                      ``("stopped", why)`` when it cannot go on
 ====================  ==========================================================
 
 The embedded cluster's workers are on this host: the driver writes each dataset
@@ -105,6 +106,9 @@ class RelayedExecutor(Executor):
         try:
             while True:
                 message = self._conn.recv()
+                if message[0] == "stopped":  # it cannot go on, and says why
+                    why = message[1]
+                    break
                 with self._lock:
                     future = self._futures.pop(message[1], None)
                 if future is None:  # not ours (cannot happen with this module's cluster side)
@@ -119,7 +123,7 @@ class RelayedExecutor(Executor):
             self._gone = why
             lost, self._futures = list(self._futures.values()), {}
         for future in lost:
-            future.set_exception(TaskLost("ClusterGone", f"the embedded dask cluster's {why}", True, False))
+            future.set_exception(TaskLost("ClusterGone", f"the embedded dask cluster stopped: {why}", True, False))
 
     def is_worker_death(self, exc: BaseException) -> bool:
         return isinstance(exc, TaskLost) and exc.death
@@ -155,8 +159,9 @@ def serve(executor: Executor, conn: Any) -> None:
                 try:
                     with lock:
                         tasks[executor.submit(jobs, handle)] = task
-                except Exception as exc:  # noqa: BLE001 - the driver decides what it means
-                    send(("lost", task, type(exc).__name__, str(exc), False, False))
+                except Exception as exc:  # noqa: BLE001 - the engine is broken: say so, and stop
+                    send(("stopped", f"cannot submit a task: {type(exc).__name__}: {' '.join(str(exc).split())}"))
+                    break
         except (EOFError, OSError):
             pass
         finally:
