@@ -563,7 +563,7 @@ def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, wh
     if not features:
         raise DatasetError(f"{where}: no feature columns are left after 'target' and 'drop' (columns: {_choices(columns)})")
     names = _feature_names(features, columns, where)
-    frame = _apply_missing(frame[features + [target]], target, missing, nominal, where)
+    frame = _apply_missing(frame[features + [target]], target, missing, where)
     y, classes = _encode_nominal(frame[target])
     _check_rows_and_classes(len(y), np.bincount(y, minlength=len(classes)), classes, f"target {target!r}", where)
     X = np.empty((len(frame), len(features)), dtype=np.float64)
@@ -632,7 +632,7 @@ def _encode_nominal(series) -> tuple[np.ndarray, list[str]]:
     return lookup[codes], categories
 
 
-def _apply_missing(frame, target: str, policy: str, nominal: set[str], where: str):
+def _apply_missing(frame, target: str, policy: str, where: str):
     counts = frame.isna().sum()
     counts = counts[counts > 0]
     if counts.empty:

@@ -46,6 +46,9 @@ class Executor:
         done, _ = cf.wait(list(futures), timeout=timeout, return_when=cf.FIRST_COMPLETED)
         return set(done)
 
+    def wake(self) -> None:
+        """Make a :meth:`wait` in another thread return early (here: it returns at its timeout)."""
+
     def is_worker_death(self, exc: BaseException) -> bool:
         return False
 

@@ -166,9 +166,7 @@ def serve(executor: Executor, conn: Any) -> None:
             pass
         finally:
             closed.set()
-            wake = getattr(executor, "wake", None)
-            if wake is not None:
-                wake()  # the loop below ends now, not at its next timeout
+            executor.wake()  # the loop below ends now, not at its next timeout
 
     reader = threading.Thread(target=read, name="foldsweep-relay", daemon=True)
     reader.start()

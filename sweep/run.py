@@ -284,24 +284,25 @@ class _Loop:
                 self._collect(future)
             except KeyboardInterrupt:  # Ctrl-C reached its worker too (the whole process group):
                 pass  # its jobs are given back below, with every other one still held
-        self._commit()
-        # everything still held, including jobs claimed but not yet submitted when the signal came
-        self.store.release_all(self.owner)
-        self.executor.close(kill=True)
+        self._give_back()
 
     def _abandon(self) -> None:
         """After an error the loop cannot go on from (the embedded cluster stopped, the store
         failed): keep what finished, give the rest back as pending, as far as the store still
         lets it (else the leases expire, and the next run re-queues those jobs)."""
         try:
-            self._commit()
-            self.store.release_all(self.owner)
+            self._give_back()
         except Exception:  # noqa: BLE001 - the error being raised says what went wrong
             pass
+
+    def _give_back(self) -> None:
+        """Commit what finished, give back as pending every job still held (including jobs
+        claimed but not yet submitted), and stop the executor."""
         try:
+            self._commit()
+            self.store.release_all(self.owner)
+        finally:
             self.executor.close(kill=True)
-        except Exception:  # noqa: BLE001 - as above
-            pass
 
     @property
     def window(self) -> int:

@@ -17,6 +17,8 @@ from typing import Any
 
 import numpy as np
 
+from workers.impute import fill_from_training
+
 
 @dataclass(frozen=True, eq=False)
 class Job:
@@ -122,16 +124,6 @@ def run_job(job: Job, data: Any) -> JobResult:
         return JobResult(ok=False, error=traceback.format_exc(limit=20), finished_at=time.time(), **base)
 
 
-#: fingerprint -> whether that dataset has empty cells (checked once per process)
-_missing: dict[str, bool] = {}
-
-
-def _has_missing(data: Any) -> bool:
-    if data.fingerprint not in _missing:
-        _missing[data.fingerprint] = bool(np.isnan(data.X).any())
-    return _missing[data.fingerprint]
-
-
 def run_jobs(jobs: list[Job], data: Any) -> list[JobResult]:
     """Run several short jobs on the same dataset in one task (the run loop batches jobs of
     milliseconds, so that the per-task cost of the executor does not dominate); never raises."""
@@ -145,10 +137,8 @@ def _fit_and_score(worker: Any, estimator: Any, job: Job, data: Any) -> dict[str
     test[job.test_index] = True
     X_train, y_train = data.X[~test], data.y[~test]
     X_test, y_test = data.X[test], data.y[test]
-    if _has_missing(data):  # a dataset loaded with missing = "impute": filled from this training part
-        from workers.impute import fill_from_training
-
-        X_train, X_test = fill_from_training(X_train, X_test, data.nominal, data.feature_names)
+    # a dataset loaded with missing = "impute" has NaN cells: filled from this training part
+    X_train, X_test = fill_from_training(X_train, X_test, data.nominal, data.feature_names)
     t0 = time.perf_counter()
     estimator.fit(X_train, y_train)
     fit_seconds = time.perf_counter() - t0
