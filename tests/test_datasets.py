@@ -370,11 +370,11 @@ def test_impute_never_invents_a_class(tmp_path):
 
 @pytest.mark.parametrize(("entry", "pattern"), [
     ({"name": "d", "builtin": "iris", "targt": "x"}, r"unknown key 'targt'; did you mean 'target'\? \(allowed: name, builtin"),
-    ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file'; got none"),
+    ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file', 'rdataset'; got none"),
     ({"name": "d", "builtin": "iris", "file": "a.csv"}, r"a dataset needs exactly one of .*; got 'builtin' and 'file'"),
     ({"builtin": "iris"}, r"key 'name' is required"),
     ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer\)"),
-    ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file datasets"),
+    ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file and rdataset datasets"),
     ({"name": "d", "synthetic": {"n_sample": 10}}, r"key 'synthetic.n_sample' is not a make_classification keyword; did you mean 'n_samples'\?"),
     ({"name": "d", "synthetic": {"n_samples": 10.5}}, r"key 'synthetic.n_samples' must be an integer, got 10.5"),
     ({"name": "d", "synthetic": {"random_state": True}}, r"key 'synthetic.random_state' must be an integer"),
@@ -391,7 +391,7 @@ def test_validate_entry_errors(entry, pattern):
 
 
 def test_every_key_is_documented_and_valid_entries_pass():
-    assert set(DATASET_KEYS) == {"name", "builtin", "synthetic", "file", "target", "nominal", "drop", "missing"}
+    assert set(DATASET_KEYS) == {"name", "builtin", "synthetic", "file", "rdataset", "target", "nominal", "drop", "missing"}
     validate_entry({"name": "d", "file": "x.parquet", "target": "y", "nominal": ["a"], "drop": [], "missing": "impute"}, WHERE)
     validate_entry({"name": "d", "synthetic": {"weights": [0.3, 0.7], "shift": [0.0, 1.0], "hypercube": False}}, WHERE)
 
@@ -429,7 +429,7 @@ def test_empty_csv_is_unreadable(tmp_path):
 
 def test_target_column_missing_lists_the_columns(tmp_path):
     path = write(sample_frame(), tmp_path / "x.csv")
-    with pytest.raises(DatasetError, match=r"key 'target' names column 'varieti', which the file does not have; "
+    with pytest.raises(DatasetError, match=r"key 'target' names column 'varieti', which the data does not have; "
                                            r"did you mean 'variety'\? \(columns: plot id, width \(cm\), count"):
         load({"file": "x.csv", "target": "varieti"}, tmp_path)
 
@@ -437,7 +437,7 @@ def test_target_column_missing_lists_the_columns(tmp_path):
 @pytest.mark.parametrize("key", ["nominal", "drop"])
 def test_nominal_or_drop_naming_a_missing_column(tmp_path, key):
     path = write(sample_frame(), tmp_path / "x.csv")
-    with pytest.raises(DatasetError, match=rf"key '{key}' names column 'sol', which the file does not have; did you mean 'soil'"):
+    with pytest.raises(DatasetError, match=rf"key '{key}' names column 'sol', which the data does not have; did you mean 'soil'"):
         load(file_entry(path, **{key: ["sol"]}), tmp_path)
 
 
