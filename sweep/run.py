@@ -362,7 +362,8 @@ class _Loop:
             config = self.configs[c.config_id]
             jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
                             fingerprint=fp, repeat=c.repeat, fold=c.fold,
-                            test_index=self.folds[fp][(c.repeat, c.fold)], time_limit=self.spec.time_limit))
+                            test_index=self.folds[fp][(c.repeat, c.fold)], time_limit=self.spec.time_limit,
+                            folds_seed=self.spec.folds.seed))
         self.inflight[self.executor.submit(jobs, self.handles[fp])] = batch
 
     def _collect(self, future: Any) -> None:

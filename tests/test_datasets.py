@@ -373,7 +373,7 @@ def test_impute_never_invents_a_class(tmp_path):
     ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file', 'rdataset'; got none"),
     ({"name": "d", "builtin": "iris", "file": "a.csv"}, r"a dataset needs exactly one of .*; got 'builtin' and 'file'"),
     ({"builtin": "iris"}, r"key 'name' is required"),
-    ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer\)"),
+    ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer, digits, pima, glass, titanic\)"),
     ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file and rdataset datasets"),
     ({"name": "d", "synthetic": {"n_sample": 10}}, r"key 'synthetic.n_sample' is not a make_classification keyword; did you mean 'n_samples'\?"),
     ({"name": "d", "synthetic": {"n_samples": 10.5}}, r"key 'synthetic.n_samples' must be an integer, got 10.5"),
