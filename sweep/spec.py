@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import difflib
 import hashlib
+import itertools
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -240,9 +241,10 @@ def _model(block: Any, where: str) -> ModelBlock:
         raise SpecError(f"{where}: missing key 'worker' (the kind of fold job, e.g. 'fuzzy_rules')")
     name = _typed(block["worker"], str, where, "worker", "a worker name")
     try:
-        declared = get_worker(name).params
+        worker = get_worker(name)
     except KeyError as exc:
         raise SpecError(f"{where}: worker: {exc.args[0]}") from None
+    declared = worker.params
     where = f"{where} {block.get('name', name)!r}"
     fixed = _table(block.get("fixed", {}), where, "fixed")
     grid = _table(block.get("grid", {}), where, "grid")
@@ -250,6 +252,7 @@ def _model(block: Any, where: str) -> ModelBlock:
     grid_checked = {k: _grid_values(declared, name, k, v, where) for k, v in grid.items()}
     for key in fixed_checked.keys() & grid_checked.keys():
         raise SpecError(f"{where}: {key!r} is both in fixed and in grid; keep it in one of them")
+    _cross_check(worker, fixed_checked, grid_checked, where)
     return ModelBlock(
         label=_typed(block.get("name", name), str, where, "name", "a string"),
         worker=name,
@@ -260,6 +263,18 @@ def _model(block: Any, where: str) -> ModelBlock:
         applies={k: _rule(declared, name, cond, where, f"applies.{k}", target=k)
                  for k, cond in _table(block.get("applies", {}), where, "applies").items()},
     )
+
+
+def _cross_check(worker: Any, fixed: Mapping[str, Any], grid: Mapping[str, tuple[Any, ...]], where: str) -> None:
+    """The worker's own check across parameters, on every grid combination (defaults filled in)."""
+    if worker.check is None:
+        return
+    base = {k: p.default for k, p in worker.params.items()} | dict(fixed)
+    for values in itertools.product(*grid.values()):
+        problems = worker.check(base | dict(zip(grid, values)))
+        if problems:
+            at = "fixed/grid" if grid else "fixed"
+            raise SpecError(f"{where}: {at}: {problems[0]}")
 
 
 def _table(value: Any, where: str, key: str) -> Mapping[str, Any]:

@@ -47,9 +47,13 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         Linguistic terms per numeric variable.
     min_support : float, default=0.05
         Minimum fuzzy support, scaled per class by the class's share of the data.
-    min_confidence : float, default=0.8
-        Minimum confidence of a candidate rule; a node of the search tree
-        whose confidence exceeds it is not expanded.
+    max_confidence : float, default=0.8
+        A node of the mining search tree whose confidence exceeds it is not
+        expanded (the published method's confidence threshold); every
+        frequent node is a candidate rule.
+    min_confidence : float, default=0.0
+        Optional filter: candidate rules below this confidence are dropped
+        (0: no filter, the published method). At most ``max_confidence``.
     depth : int, default=3
         Maximum antecedents per rule.
     cover_limit : int, default=2
@@ -111,8 +115,8 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
     the mining stage (computed with the untuned labels).
     """
 
-    def __init__(self, labels: int = 5, min_support: float = 0.05, min_confidence: float = 0.8,
-                 depth: int = 3, cover_limit: int = 2, population: int = 50, evaluations: int = 15000,
+    def __init__(self, labels: int = 5, min_support: float = 0.05, max_confidence: float = 0.8,
+                 min_confidence: float = 0.0, depth: int = 3, cover_limit: int = 2, population: int = 50, evaluations: int = 15000,
                  penalty: float = 0.15, reasoning: str = "additive", measure: str = "power",
                  power_exponent: float | None = None, tnorm: str = "product",
                  rule_weight: str = "certainty", tuning: bool = True, random_state: Any = None,
@@ -121,6 +125,7 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
                  category_names: Sequence[Sequence[str] | None] | None = None) -> None:
         self.labels = labels
         self.min_support = min_support
+        self.max_confidence = max_confidence
         self.min_confidence = min_confidence
         self.depth = depth
         self.cover_limit = cover_limit
@@ -158,7 +163,7 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         self.partition_ = build_partition(X, nominal, self.labels)
         M = memberships(self.partition_, X)
         mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
-                           self.min_confidence, self.depth, self.rule_weight)
+                           self.max_confidence, self.depth, self.rule_weight, self.min_confidence)
         t_mine = lap()
         screened = mined.take(prescreen(M, mined.items, mined.classes, y_idx, self.cover_limit))
         t_screen = lap()
@@ -242,7 +247,9 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         checks = [
             ("labels", isinstance(self.labels, (int, np.integer)) and self.labels >= 2, "an integer >= 2"),
             ("min_support", 0 <= self.min_support <= 1, "a number in [0, 1]"),
-            ("min_confidence", 0 <= self.min_confidence <= 1, "a number in [0, 1]"),
+            ("max_confidence", 0 <= self.max_confidence <= 1, "a number in [0, 1]"),
+            ("min_confidence", 0 <= self.min_confidence <= self.max_confidence,
+             "a number in [0, max_confidence]"),
             ("depth", isinstance(self.depth, (int, np.integer)) and self.depth >= 1, "an integer >= 1"),
             ("cover_limit", isinstance(self.cover_limit, (int, np.integer)) and self.cover_limit >= 1,
              "an integer >= 1"),

@@ -8,10 +8,15 @@ items' memberships. With N training examples,
 * confidence ``conf(A -> C) = sum_{x in C} mu_A(x) / sum_x mu_A(x)``,
 * the minimum support of class C is ``min_support * N_C / N``.
 
-A node is a candidate rule when it meets both the class's minimum support
-and ``min_confidence``; it is expanded (one more item) only when its support
-meets the minimum, its confidence does not exceed ``min_confidence`` and it
-has fewer than ``depth`` items. Choice left open by the method: the tree is
+The published semantics (FARC-HD, section III-A): a node is a candidate rule
+when it is frequent (its support meets the class's minimum support); it is
+expanded (one more item) only when it is frequent, its confidence does not
+exceed ``max_confidence`` (above it the rule is already good enough) and it
+has fewer than ``depth`` items. ``min_confidence`` (default 0: no filter) is
+an optional extra filter on the candidates, not part of the published
+method; it must not exceed ``max_confidence``.
+
+Choice left open by the method: the tree is
 the usual enumeration (prefix) tree, a child adds an item of a variable with
 a larger index than the node's last item, so that every item set is visited
 at most once and in a fixed order (level by level, then by items), which
@@ -76,8 +81,8 @@ def support_confidence(match: np.ndarray, in_class: np.ndarray) -> tuple[np.ndar
 
 
 def mine_rules(M: np.ndarray, item_var: np.ndarray, y: np.ndarray, n_classes: int,
-               min_support: float, min_confidence: float, depth: int,
-               rule_weight: str = "certainty") -> RuleSet:
+               min_support: float, max_confidence: float, depth: int,
+               rule_weight: str = "certainty", min_confidence: float = 0.0) -> RuleSet:
     """Mine the candidate rules of every class.
 
     Parameters
@@ -88,10 +93,15 @@ def mine_rules(M: np.ndarray, item_var: np.ndarray, y: np.ndarray, n_classes: in
         The variable of each item.
     y : ndarray of shape (n_examples,)
         Class indices ``0 .. n_classes - 1``.
-    min_support, min_confidence : float
+    min_support : float
+        Minimum support, scaled per class by the class's share.
+    max_confidence : float
+        A node whose confidence exceeds it is not expanded.
     depth : int
         Maximum antecedents per rule.
     rule_weight : {"certainty", "penalized_certainty"}
+    min_confidence : float, default=0.0
+        Candidates below it are dropped (0: every frequent node is a candidate).
 
     Returns
     -------
@@ -105,7 +115,7 @@ def mine_rules(M: np.ndarray, item_var: np.ndarray, y: np.ndarray, n_classes: in
         if not in_class.any():
             continue
         minsup = min_support * in_class.sum() / n
-        parts.append(_mine_class(M, item_var, in_class, minsup, min_confidence, depth, c))
+        parts.append(_mine_class(M, item_var, in_class, minsup, max_confidence, min_confidence, depth, c))
     pad = M.shape[0] - 1
     if not parts:
         return _empty(depth)
@@ -125,7 +135,7 @@ def _empty(depth: int) -> RuleSet:
     return RuleSet(np.zeros((0, depth), dtype=np.intp), np.zeros(0, dtype=np.intp), z, z, z)
 
 
-def _mine_class(M, item_var, in_class, minsup, min_conf, depth, c):
+def _mine_class(M, item_var, in_class, minsup, max_conf, min_conf, depth, c):
     n_items = len(item_var)
     nodes = np.arange(n_items)[:, None]
     match = M[:n_items]
@@ -134,13 +144,13 @@ def _mine_class(M, item_var, in_class, minsup, min_conf, depth, c):
     for level in range(1, depth + 1):
         # only frequent nodes reach here past level 1; the filter keeps level 1 alike
         frequent = sup >= minsup
-        cand = frequent & (conf >= min_conf)
+        cand = frequent & (conf >= min_conf) if min_conf > 0 else frequent
         found_items.extend(list(nodes[cand]))
         found_sup.append(sup[cand])
         found_conf.append(conf[cand])
         if level == depth:
             break
-        grow = np.flatnonzero(frequent & ~(conf > min_conf))
+        grow = np.flatnonzero(frequent & ~(conf > max_conf))
         if len(grow) == 0:
             break
         nodes, match, sup, conf = _children(nodes[grow], match[grow], M, item_var, in_class, minsup)
