@@ -74,7 +74,7 @@ class _SeedEcho:
     def __init__(self, params: dict[str, Any]) -> None:
         self.random_state = params["random_state"]
 
-    def fit(self, X: np.ndarray, y: np.ndarray) -> "_SeedEcho":
+    def fit(self, X: np.ndarray, y: np.ndarray) -> _SeedEcho:
         self.majority_ = int(np.bincount(y).argmax())
         return self
 

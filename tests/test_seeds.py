@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -44,7 +45,7 @@ grid = {{ random_state = [7, 8] }}
 """
 
 
-def seeds_of(tmp_path: Path, seed: int) -> "object":
+def seeds_of(tmp_path: Path, seed: int) -> Any:
     spec = tmp_path / f"seeds{seed}.toml"
     spec.write_text(SPEC.format(seed=seed))
     assert main(["run", str(spec), "--workers", "1"]) == 0

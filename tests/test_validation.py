@@ -13,7 +13,7 @@ The folds of a dataset run two at a time (joblib); the fits are shared by the te
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 from pathlib import Path
 
 import numpy as np
@@ -32,7 +32,7 @@ pytestmark = pytest.mark.slow
 SCHEME = FoldScheme(k=5, repeats=1, seed=0)
 
 
-@lru_cache(maxsize=None)
+@cache
 def dataset(name: str) -> Dataset:
     return load_dataset({"name": name, "builtin": name}, base_dir=Path("."), where=f"builtin {name}")
 
@@ -70,7 +70,7 @@ def screened_per_class(est, X: np.ndarray, y: np.ndarray, n_classes: int) -> np.
     return np.bincount(mined.classes[kept], minlength=n_classes)
 
 
-@lru_cache(maxsize=None)
+@cache
 def cross_validate(worker_name: str, name: str, stages: bool = False, **overrides) -> tuple[float, list, list]:
     """(mean test accuracy over the 5 folds, per fold the final rules per class, per fold the prescreened
     rules per class) at default parameters."""
