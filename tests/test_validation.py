@@ -13,6 +13,7 @@ The folds of a dataset run two at a time (joblib); the fits are shared by the te
 
 from __future__ import annotations
 
+import os
 from functools import cache
 from pathlib import Path
 
@@ -110,7 +111,14 @@ GLASS_BELOW_TREE = pytest.mark.xfail(strict=True, reason=(
     "item 2), a strict xfail so that the fix shows"))
 
 
-@pytest.mark.parametrize("name", [pytest.param(n, marks=GLASS_BELOW_TREE) if n == "glass" else n for n in BUILTINS])
+# digits at default parameters: about 2 minutes of CPU per fold job with today's mining (issue 11, item 6), too
+# slow for the suite's 15 minutes on 2 cores; FOLDSWEEP_VALIDATE_DIGITS=1 runs it
+DIGITS_TOO_SLOW = pytest.mark.skipif(os.environ.get("FOLDSWEEP_VALIDATE_DIGITS") != "1", reason=(
+    "digits at defaults takes minutes per fold job; set FOLDSWEEP_VALIDATE_DIGITS=1 to run it"))
+MARKS = {"glass": GLASS_BELOW_TREE, "digits": DIGITS_TOO_SLOW}
+
+
+@pytest.mark.parametrize("name", [pytest.param(n, marks=MARKS[n]) if n in MARKS else n for n in BUILTINS])
 def test_no_worse_than_a_decision_tree(name):
     # reference: scikit-learn's decision tree (CART) on the same folds, 2 points of slack; that a rule
     # classifier at least matches a single tree on these classic sets is common practice, and FARC-HD's
