@@ -299,12 +299,13 @@ def test_signed_rank_demsar_zeros_equal_scipy_zsplit(seed, zeros):
 
 
 def test_demsar_zeros_variance_counts_every_rank():
-    # Demšar (2006), Sec. 3.1.3: z = (T - N(N+1)/4) / sqrt(N(N+1)(2N+1)/24) with all N datasets ranked,
-    # the zeros' ranks split evenly. 8 zeros (ranks 1-8) and 5 positive differences (ranks 9-13):
-    # R- = 18, z = (18 - 45.5) / sqrt(204.75), by hand.
+    # Demšar (2006), Sec. 3.1.3: z = (T - N(N+1)/4) / sd with all N datasets ranked, the zeros' ranks
+    # split evenly; sd from the ranks actually assigned, sqrt(sum r^2 / 4) (the tie-corrected form of
+    # sqrt(N(N+1)(2N+1)/24), common practice). 8 zeros (tied: rank 4.5 each) and 5 positive differences
+    # (ranks 9-13): R- = 18, sum r^2 = 8 * 4.5^2 + 615 = 777, z = (18 - 45.5) / sqrt(777 / 4), by hand.
     a = np.array([0.0] * 8 + [1, 2, 3, 4, 5], dtype=float)
     r = stats.signed_rank(a, np.zeros(13), method="approx")
-    z = (18 - 13 * 14 / 4) / np.sqrt(13 * 14 * 27 / 24)
+    z = (18 - 13 * 14 / 4) / np.sqrt(777 / 4)
     assert r.statistic == 18 and r.p_value == pytest.approx(2 * sst.norm.sf(abs(z)))
 
 
