@@ -167,11 +167,11 @@ def test_select_by_id_prefix_and_filter(sweep_results):
 @pytest.mark.parametrize(
     "selector, message",
     [
-        ("zz", "no configuration has id 'zz'"),
+        ("zz", "no configuration has the name or id 'zz'"),
         ("worker=svm", "no configuration matches"),
         ("max_dept=3", "did you mean 'max_depth'"),
         ("worker=tree", "matches 3 configurations"),
-        ("max_depth", "no configuration has id"),
+        ("max_depth", "no configuration has the name or id"),
         ("t", "matches 3 configurations"),
     ],
 )
@@ -267,8 +267,8 @@ def test_compare_equals_scipy(sweep_results):
 def test_compare_excludes_and_names_missing_datasets(sweep_results):
     res = _partial(sweep_results, lambda f: (f["dataset"] == "wine") & (f["config_id"] == "k7"))
     comp = report.compare(res, "tfull", "k7")
-    assert comp.excluded == ["wine"] and "wine" not in comp.datasets
-    assert "excluded (missing cells): wine" in comp.to_text()
+    assert comp.excluded == [{"dataset": "wine", "reason": "k7 has no results"}] and "wine" not in comp.datasets
+    assert "  wine: k7 has no results" in comp.to_text()
     with pytest.raises(SelectionError, match="same configuration"):
         report.compare(res, "tfull", "worker=tree,max_depth=none")
 
@@ -353,8 +353,8 @@ def test_cli_best_json(cli, capsys, sweep_results):
     assert cli("best", "sweeps/test.toml", "--json") == 0
     rows = json.loads(capsys.readouterr().out)
     assert {r["dataset"] for r in rows} == set(sweep_results.frame["dataset"])
-    keys = {"dataset", "config_id", "worker", "params", "mean", "sd", "folds", "planned", "complete",
-            "runner_up", "margin", "metric"}
+    keys = {"dataset", "config_id", "name", "worker", "params", "mean", "sd", "folds", "planned", "complete",
+            "runner_up", "runner_up_name", "margin", "test_p", "test_folds", "metric"}
     assert all(set(r) == keys for r in rows)
     means = _groupby_means(sweep_results)
     for r in rows:
