@@ -990,6 +990,11 @@ def rank(
     """
     up = _direction(metric, higher)
     ids = select(res, where) if where else sorted(configurations(res).index)
+    # a configuration without a single result (every job failed, or none ran yet) would leave no
+    # dataset complete: it is left out and named, the others are ranked
+    seen = set(res.frame["config_id"].unique())
+    left_out = [res.name_of(c) for c in ids if c not in seen]
+    ids = [c for c in ids if c in seen]
     full, dropped, short = paired_means(res, metric, list(ids), partial=partial)
     configs = [str(c) for c in full.columns]
     if len(configs) < 2 or len(full) < 2:
@@ -1004,6 +1009,9 @@ def rank(
         raise SelectionError(f"{res.source}: control {control_id} is not among the ranked configurations")
     ph = _posthoc(res, fr, configs, control_id, posthoc, alpha)
     warnings = []
+    if left_out:
+        warnings.append(f"left out, no results yet: {', '.join(map(str, left_out[:10]))}"
+                        + (f" and {len(left_out) - 10} more" if len(left_out) > 10 else ""))
     if fr.n <= 10 or fr.k <= 5:
         # Demšar (2006), Sec. 3.2.2 (from memory): the chi-square approximation of Friedman's statistic is
         # good "when N and k are big enough (as a rule of a thumb, N > 10 and k > 5)"; else exact tables.
