@@ -79,7 +79,7 @@ def build_parser() -> argparse.ArgumentParser:
     model.add_argument("spec")
     model.add_argument("key", nargs="?", default=None, help="the job's key, or a unique prefix of it")
     model.add_argument("--dataset", default=None)
-    model.add_argument("--config", default=None, help="configuration id (or a unique prefix)")
+    model.add_argument("--config", default=None, help="configuration name, id or a unique id prefix")
     model.add_argument("--repeat", type=int, default=0)
     model.add_argument("--fold", type=int, default=0)
     model.add_argument("--json", action="store_true")
@@ -302,7 +302,11 @@ def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
         raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "
                              "(with --repeat and --fold, default 0)")
     else:
-        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(args.config)
+        from sweep.naming import name_configurations
+
+        named = [cid for cid, n in name_configurations(inputs.spec, inputs.plan).items() if n.name == args.config]
+        config = named[0] if named else args.config  # a configuration's name, its id or an id prefix
+        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(config)
                  and j.repeat == args.repeat and j.fold == args.fold]
         what = (f"dataset {args.dataset!r}, configuration {args.config!r}, repeat {args.repeat}, "
                 f"fold {args.fold}")

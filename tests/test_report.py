@@ -242,7 +242,9 @@ def test_latex_escape():
 
 @pytest.mark.skipif(shutil.which("pdflatex") is None, reason="pdflatex is not installed")
 def test_table_latex_compiles(sweep_results, tmp_path):
-    doc = "\\documentclass{article}\n\\begin{document}\n" + _latex_table(sweep_results) + "\\end{document}\n"
+    # issue 12: compiles with a plain article preamble plus booktabs
+    doc = ("\\documentclass{article}\n\\usepackage{booktabs}\n\\begin{document}\n" + _latex_table(sweep_results)
+           + "\\end{document}\n")
     (tmp_path / "t.tex").write_text(doc)
     run = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "t.tex"], cwd=tmp_path,
                          capture_output=True, timeout=120)
