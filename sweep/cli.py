@@ -277,14 +277,17 @@ def cmd_model(args: argparse.Namespace) -> int:
         stored = store.stored_model(job.key)
     finally:
         store.close()
-    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {job.config_id} {config.label!r}, "
+    from sweep.naming import name_configurations
+
+    name = name_configurations(inputs.spec, inputs.plan)[job.config_id].name
+    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {name!r} [{job.config_id}], "
              f"repeat {job.repeat}, fold {job.fold})")
     if stored is None:
         raise SelectionError(f"{args.spec}: {where} has no result yet (see `foldsweep status`)")
     if stored["model_text"] is None:
         raise SelectionError(f"{args.spec}: {where}: worker {config.worker!r} stores no model text")
     if args.json:
-        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id,
+        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id, "name": name,
                           "label": config.label, "repeat": job.repeat, "fold": job.fold, **stored}))
         return 0
     print(f"{where}: test accuracy {stored['accuracy']:.4f}, training accuracy {stored['train_accuracy']:.4f}")

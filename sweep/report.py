@@ -417,6 +417,9 @@ def score_matrix(
     else:
         cells["column"] = _pivot_labels(res, cells["config_id"].unique(), pivot).reindex(cells["config_id"]).to_numpy()
     means = cells.pivot(index="dataset", columns="column", values="mean")
+    if pivot is None and res.legend:  # the spec's order (model blocks, then grid order), not the ids' order
+        order = {cid: i for i, cid in enumerate(res.legend)}
+        means = means[sorted(means.columns, key=lambda c: (order.get(c, len(order)), c))]
     return means, cells
 
 
