@@ -8,8 +8,12 @@ never touches the store; :func:`sweep.results.load_sweep_results` builds the
 Vocabulary: a *cell* is (dataset, configuration); its score is the mean of
 the metric over the cell's finished jobs (repeats x folds). A cell is
 *complete* when it has as many results as planned jobs, and *missing* when
-it is planned but has none. Tests over datasets exclude every dataset with a
-missing cell and name it; they never impute.
+it is planned but has none. Paired tests over datasets use, by default, only
+the datasets where every compared cell is complete and name the others with
+the reason (:func:`paired_means`); with ``partial`` they use the folds the
+compared configurations share. They never impute. Configurations are shown
+by their readable names (``SweepResults.names``, from :mod:`sweep.naming`);
+JSON records carry the id beside the name.
 
 Tie rule of :func:`best` (the README states it): the higher mean wins (the
 lower for metrics where lower is better), then the smaller standard
@@ -53,6 +57,11 @@ __all__ = [
     "rank",
     "plot_ranks",
     "plot_heatmap",
+    "rank_figure",
+    "heatmap_figure",
+    "figure_bytes",
+    "paired_means",
+    "ROPE",
     "write_text_atomic",
 ]
 
@@ -814,8 +823,8 @@ def compare(
     b: str,
     metric: str = "accuracy",
     *,
-    zero_method: str = "demsar",
-    method: str = "auto",
+    zero_method: stats.ZeroMethod = "demsar",
+    method: stats.PMethod = "auto",
     higher: bool | None = None,
     partial: bool = False,
     alpha: float = 0.05,
@@ -883,7 +892,7 @@ class RankReport:
     higher_is_better: bool
     configs: list[str]
     datasets: list[str]
-    excluded: list[str]
+    excluded: list[dict[str, str]]
     friedman: stats.FriedmanResult
     cd: float
     alpha: float
@@ -1090,7 +1099,8 @@ def _save_figure(fig, path: str | os.PathLike) -> None:
 
 def _cd_groups(ranks: np.ndarray, cd: float) -> list[tuple[int, int]]:
     """Maximal runs (i, j) of rank-sorted configurations whose spread is below CD."""
-    groups, j = [], 0
+    groups: list[tuple[int, int]] = []
+    j = 0
     for i in range(ranks.size):
         j = max(j, i)
         while j + 1 < ranks.size and ranks[j + 1] - ranks[i] < cd:

@@ -19,6 +19,7 @@ Built from a :class:`sweep.report.SweepResults` loaded with ``details=True``.
 from __future__ import annotations
 
 import base64
+import functools
 import html
 import math
 import platform
@@ -114,7 +115,8 @@ def _fmt(value: Any) -> str:
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return "—"
     if isinstance(value, (float, np.floating)):
-        return f"{value:.4g}" if abs(value) < 1e-3 and value != 0 else f"{value:.4f}"
+        number = float(value)
+        return f"{number:.4g}" if abs(number) < 1e-3 and number != 0 else f"{number:.4f}"
     return str(value)
 
 
@@ -215,8 +217,8 @@ def _pairwise(res, metric, up, order, alpha, rope, partial) -> str:
     control = order[0]
     rows, ps = [], []
     for other in order[1:]:
-        comp = _attempt(lambda: report.compare(res, control, other, metric, higher=up, partial=partial, alpha=alpha,
-                                               rope=rope))
+        comp = _attempt(functools.partial(report.compare, res, control, other, metric, higher=up, partial=partial,
+                                          alpha=alpha, rope=rope))
         if isinstance(comp, str):
             rows.append([res.name_of(other), 0, None, None, None, None, None, None, comp])
             ps.append(np.nan)
