@@ -422,3 +422,29 @@ def test_latex_with_names_and_legend_compiles(tmp_path):
         run = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "t.tex"], cwd=tmp_path,
                              capture_output=True, timeout=120)
         assert run.returncode == 0, run.stdout[-2000:]
+
+
+def test_written_files_get_the_permissions_of_a_new_file(tmp_path):
+    # common practice: a new file is created 0666 minus the umask (tempfile.mkstemp's 0600 must not leak)
+    from sweep.writing import atomic_write
+
+    old = os.umask(0o022)
+    try:
+        report.write_text_atomic(tmp_path / "a.tex", "x")
+        atomic_write(tmp_path / "b.bin", lambda handle: handle.write(b"y"))
+        os.umask(0o027)
+        report.write_text_atomic(tmp_path / "c.tex", "z")
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE((tmp_path / "a.tex").stat().st_mode) == 0o644
+    assert stat.S_IMODE((tmp_path / "b.bin").stat().st_mode) == 0o644
+    assert stat.S_IMODE((tmp_path / "c.tex").stat().st_mode) == 0o640
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.tex", "b.bin", "c.tex"]  # no temporary left
+
+
+def test_clean_text_strips_terminal_control():
+    # ECMA-48 (common practice): CSI sequences ESC [ ... final byte, OSC ESC ] ... BEL, C0/C1 controls
+    from sweep.cli import clean_text
+
+    assert clean_text("\x1b[1;31mKeyError\x1b[0m: 'x'\x07") == "KeyError: 'x'"
+    assert clean_text("a\x1b]0;title\x07b\r\nc\td\x9b") == "ab\nc\td"
