@@ -100,6 +100,8 @@ class SweepResults:
     repeats: int | None = None
     #: What else the loader read (the tracker view, job counts, failures, dataset records).
     info: dict[str, Any] = field(default_factory=dict)
+    #: Derived tables kept for the next report on the same results (cell statistics per metric, configurations).
+    cache: dict[Any, Any] = field(default_factory=dict, compare=False, repr=False)
 
     @property
     def source(self) -> str:
@@ -160,6 +162,12 @@ def configurations(res: SweepResults) -> pd.DataFrame:
 
     With a legend (the loader's), parameters that do not apply to a configuration are None.
     """
+    if "configurations" not in res.cache:
+        res.cache["configurations"] = _configurations(res)
+    return res.cache["configurations"].copy()
+
+
+def _configurations(res: SweepResults) -> pd.DataFrame:
     cols = ["config_id", *_config_columns(res), *res.params]
     if res.legend:
         rows = [{"config_id": cid, "worker": e["worker"], "label": e["model"],
@@ -256,19 +264,19 @@ def cell_stats(res: SweepResults, metric: str = "accuracy", *, configs: list[str
     cells without any result appear with ``n = 0`` and NaN mean.
     """
     _check_metric(res, metric)
-    frame = res.frame
+    key = ("cells", metric)
+    if key not in res.cache:  # one pass over the job rows per metric; later calls select cells from it
+        grouped = res.frame.groupby(["dataset", "config_id"], sort=False, observed=True)[metric]
+        cells = grouped.agg(["mean", "std", "count"]).rename(columns={"std": "sd", "count": "n"})
+        planned = res.planned.set_index(["dataset", "config_id"])["jobs"]
+        cells = cells.join(planned.rename("planned"), how="outer")
+        cells["n"] = cells["n"].fillna(0).astype(int)
+        cells["complete"] = cells["planned"].notna() & (cells["n"] >= cells["planned"].fillna(np.inf))
+        res.cache[key] = cells.sort_index()
+    cells = res.cache[key]
     if configs is not None:
-        frame = frame[frame["config_id"].isin(configs)]
-    grouped = frame.groupby(["dataset", "config_id"], sort=False, observed=True)[metric]
-    cells = grouped.agg(["mean", "std", "count"]).rename(columns={"std": "sd", "count": "n"})
-    planned = res.planned
-    if configs is not None:
-        planned = planned[planned["config_id"].isin(configs)]
-    planned = planned.set_index(["dataset", "config_id"])["jobs"]
-    cells = cells.join(planned.rename("planned"), how="outer")
-    cells["n"] = cells["n"].fillna(0).astype(int)
-    cells["complete"] = cells["planned"].notna() & (cells["n"] >= cells["planned"].fillna(np.inf))
-    return cells.sort_index()
+        cells = cells[cells.index.get_level_values("config_id").isin(configs)]
+    return cells.copy()
 
 
 def _rank_key(cells: pd.DataFrame, up: bool) -> pd.DataFrame:
@@ -339,7 +347,10 @@ def best(
     out = out.reset_index().rename(columns={"index": "dataset"})
     out["name"] = [res.name_of(c) for c in out["config_id"]]
     out["runner_up_name"] = [res.name_of(c) for c in out["runner_up"]]
-    tests = [_fold_test(res, metric, d, a, b) for d, a, b in zip(out["dataset"], out["config_id"], out["runner_up"])]
+    pairs = {c for c in [*out["config_id"], *out["runner_up"]] if isinstance(c, str)}
+    rows = res.frame[res.frame["config_id"].isin(pairs)]  # one pass over the job rows, then small frames
+    tests = [_fold_test(res, metric, d, a, b, rows[rows["dataset"] == d])
+             for d, a, b in zip(out["dataset"], out["config_id"], out["runner_up"])]
     out["test_p"] = [t[0] for t in tests]
     out["test_folds"] = [t[1] for t in tests]
     cols = ["dataset", "config_id", "name", "worker", "params", "mean", "sd", "folds", "planned", "complete",
@@ -353,20 +364,31 @@ def _test_train_ratio(res: SweepResults) -> float:
     return 1.0 / (k - 1) if k > 1 else float("nan")
 
 
-def _paired_folds(res: SweepResults, metric: str, dataset: str, a: str, b: str) -> tuple[np.ndarray, np.ndarray]:
-    """Scores of ``a`` and ``b`` on the (repeat, fold)s of ``dataset`` both have finished."""
-    f = res.frame
-    rows = f[(f["dataset"] == dataset) & f["config_id"].isin([a, b])]
-    wide = rows.pivot_table(index=["repeat", "fold"], columns="config_id", values=metric, aggfunc="first")
-    wide = wide.reindex(columns=[a, b]).dropna()
-    return wide[a].to_numpy(dtype=float), wide[b].to_numpy(dtype=float)
+def _paired_folds(frame: pd.DataFrame, metric: str, dataset: str, a: str,
+                  b: str) -> tuple[np.ndarray, np.ndarray]:
+    """Scores of ``a`` and ``b`` on the (repeat, fold)s of ``dataset`` both have finished (``frame``: job rows,
+    best already narrowed to the configurations concerned)."""
+    pairs = _paired_fold_table(frame, metric, a, b)
+    return pairs.get(dataset, (np.empty(0), np.empty(0)))
 
 
-def _fold_test(res: SweepResults, metric: str, dataset: str, a: Any, b: Any) -> tuple[float, int]:
+def _paired_fold_table(frame: pd.DataFrame, metric: str, a: str, b: str) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """dataset -> (scores of ``a``, scores of ``b``) on the (repeat, fold)s both have, in (repeat, fold) order."""
+    index = ["dataset", "repeat", "fold"]
+    sides = [frame[frame["config_id"] == c].drop_duplicates(index).set_index(index)[metric] for c in (a, b)]
+    both = pd.concat(sides, axis=1, keys=["a", "b"], join="inner").sort_index()
+    out = {}
+    for dataset, part in both.groupby(level="dataset", sort=False):
+        out[str(dataset)] = (part["a"].to_numpy(dtype=float), part["b"].to_numpy(dtype=float))
+    return out
+
+
+def _fold_test(res: SweepResults, metric: str, dataset: str, a: Any, b: Any,
+               frame: pd.DataFrame) -> tuple[float, int]:
     """(corrected resampled t p-value, shared folds) of ``a`` against ``b`` on one dataset."""
     if not isinstance(a, str) or not isinstance(b, str):
         return float("nan"), 0
-    x, y = _paired_folds(res, metric, dataset, a, b)
+    x, y = _paired_folds(frame, metric, dataset, a, b)
     ratio = _test_train_ratio(res)
     if x.size < 2 or not math.isfinite(ratio):
         return float("nan"), int(x.size)
@@ -854,14 +876,18 @@ def compare(
         wil = stats.signed_rank(x, y, higher_is_better=up, zero_method=zero_method, method=method)
     warnings = stats.small_n_warnings(wil.n if wil else len(x), alpha, method=wil.method if wil else None)
     bay = stats.bayes_signed_rank(x, y, rope=rope, higher_is_better=up, random_state=random_state) if len(x) >= 2 else None
-    per_dataset = [_per_dataset(res, metric, str(d), ida, idb, up, rope) for d in means.index]
+    rows = res.frame[res.frame["config_id"].isin([ida, idb])]  # one pass over the job rows, then small frames
+    folds = _paired_fold_table(rows, metric, ida, idb)
+    empty = (np.empty(0), np.empty(0))
+    per_dataset = [_per_dataset(res, folds.get(str(d), empty), str(d), up, rope) for d in means.index]
     return Comparison(metric, up, ida, idb, [str(d) for d in means.index], excluded, sign, wil,
                       name_a=res.name_of(ida), name_b=res.name_of(idb), partial=short, partial_mode=partial,
                       alpha=alpha, warnings=warnings, bayes=bay, per_dataset=per_dataset)
 
 
-def _per_dataset(res: SweepResults, metric: str, dataset: str, a: str, b: str, up: bool, rope: float) -> dict[str, Any]:
-    x, y = _paired_folds(res, metric, dataset, a, b)
+def _per_dataset(res: SweepResults, paired: tuple[np.ndarray, np.ndarray], dataset: str, up: bool,
+                 rope: float) -> dict[str, Any]:
+    x, y = paired
     ratio = _test_train_ratio(res)
     row: dict[str, Any] = {"dataset": dataset, "mean_a": float(x.mean()) if x.size else float("nan"),
                            "mean_b": float(y.mean()) if y.size else float("nan"), "folds": int(x.size),

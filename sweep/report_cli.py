@@ -79,7 +79,8 @@ def add_commands(subparsers: Any) -> None:
     study.add_argument("--alpha", type=float, default=0.05)
     study.add_argument("--partial", action="store_true",
                        help="paired tests over the folds the configurations share (default: complete cells only)")
-    study.add_argument("--limit", type=int, default=20, help="configurations in the rank plot and the pairwise tests")
+    study.add_argument("--limit", type=int, default=10,
+                       help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
     _bayes_options(study)
     study.set_defaults(func=cmd_report)
 

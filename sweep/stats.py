@@ -742,9 +742,9 @@ def bayes_signed_rank(a, b, *, rope: float, higher_is_better: bool = True, rando
     weights = np.ones(diff.size)
     weights[0] = prior
     w = np.random.RandomState(random_state).dirichlet(weights, nsamples)
-    p_above = np.einsum("si,ij,sj->s", w, above, w)
+    p_above = ((w @ above) * w).sum(axis=1)  # w_s' A w_s for every draw s, as one matrix product
     if rope > 0:
-        p_below = np.einsum("si,ij,sj->s", w, below, w)
+        p_below = ((w @ below) * w).sum(axis=1)
         cube = np.stack([p_above, 1.0 - p_above - p_below, p_below], axis=1)
     else:  # without a rope there is no equivalence region: A or B
         cube = np.stack([p_above, np.full(nsamples, -1.0), 1.0 - p_above], axis=1)

@@ -49,7 +49,7 @@ pre{background:#f7f7f7;padding:.8em;overflow:auto;font-size:.8em} img{max-width:
 
 def build_report(res: report.SweepResults, metric: str = "accuracy", *, higher: bool | None = None,
                  alpha: float = 0.05, rope: float = report.ROPE, partial: bool = False, where: str | None = None,
-                 limit: int = 20) -> str:
+                 limit: int = 10) -> str:
     """The study report of ``res`` as one HTML document (a string)."""
     up = report.higher_is_better(metric) if higher is None else higher
     ids = report.select(res, where) if where else None
