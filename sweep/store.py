@@ -495,11 +495,13 @@ class Store:
         with self.engine.connect() as conn:
             return dict(conn.execute(query).all())
 
-    def cell_counts(self, sweep: str) -> list[tuple[str, str, str, int]]:
-        """(dataset, config_id, state, jobs) over the active jobs of ``sweep``."""
+    def cell_counts(self, sweep: str, states: Sequence[str] = STATES) -> list[tuple[str, str, str, int]]:
+        """(dataset, config_id, state, jobs) over the active jobs of ``sweep`` in ``states`` (leaving out
+        "done" reads only the unfinished jobs, through the (sweep, state) index)."""
         j = jobs_table.c
         query = (sa.select(j.dataset, j.config_id, j.state, sa.func.count())
-                 .where(j.sweep == sweep, j.active).group_by(j.dataset, j.config_id, j.state))
+                 .where(j.sweep == sweep, j.state.in_(list(states)), j.active)
+                 .group_by(j.dataset, j.config_id, j.state))
         with self.engine.connect() as conn:
             return [(d, c, s, int(n)) for d, c, s, n in conn.execute(query)]
 

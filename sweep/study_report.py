@@ -125,9 +125,10 @@ def _fmt(value: Any) -> str:
 
 def _completeness(res: report.SweepResults, metric: str) -> str:
     counts = res.info.get("cell_counts", [])
-    states = {"done": 0, "failed": 0, "running": 0, "pending": 0}
+    states = {"done": len(res.frame), "failed": 0, "running": 0, "pending": 0}
     for _, _, state, n in counts:
-        states[state] = states.get(state, 0) + n
+        if state != "done":  # done jobs are the results' rows
+            states[state] = states.get(state, 0) + n
     planned = int(res.planned["jobs"].sum()) if len(res.planned) else sum(states.values())
     recorded = sum(states.values())
     states["pending"] += max(planned - recorded, 0)  # planned but not synced yet: the spec grew since the last run
