@@ -443,6 +443,10 @@ def test_end_to_end_reports_on_a_real_sweep(tmp_path):
     table = run_foldsweep("table", spec, "--format", "csv")
     assert table.returncode == 0, table.stderr
     out = pd.read_csv(StringIO(table.stdout), index_col=0)
+    # the table's columns are the configurations' readable names (foldsweep configs maps them to ids)
+    names = {r["id"]: r["name"] for r in json.loads(run_foldsweep("configs", spec, "--json").stdout)}
+    assert names[means.columns[0]] in out.columns
+    means = means.rename(columns=names)
     np.testing.assert_allclose(out.loc[means.index, means.columns].to_numpy(), means.to_numpy(), rtol=1e-9)
 
     best = run_foldsweep("best", spec, "--json")
