@@ -557,8 +557,9 @@ def _describe(res: SweepResults, cid: str) -> str:
     name = res.name_of(cid)
     if entry is None:
         return f"{name} ({cid})" if name != cid else str(cid)
-    params = ", ".join(f"{k}={_param_value(v)}" for k, v in entry["params"].items())
-    return f"{name}: model {entry['model']} ({entry['worker']}), {params or 'defaults'} [{cid}]"
+    shown = entry.get("given", list(entry["params"]))  # the parameters the spec sets, else all
+    params = ", ".join(f"{k}={_param_value(entry['params'][k])}" for k in shown if k in entry["params"])
+    return f"{name}: {entry['worker']}, {params or 'default parameters'} [{cid}]"
 
 
 def _table_parts(res: SweepResults, metric: str, up: bool, pivot: str | None, where: str | None):

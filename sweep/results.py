@@ -157,11 +157,13 @@ def load_sweep_results(spec_path: str | Path, metrics: Sequence[str] | None = No
     finally:
         store.close()
     plan = view.plan
+    given = {b.label: {*b.fixed, *b.grid} for b in view.spec.models}  # the parameters the spec sets
     planned = pd.DataFrame([(name, c.config_id, plan.jobs_per_cell) for name, _ in plan.datasets
                             for c in plan.configurations], columns=["dataset", "config_id", "jobs"])
     return SweepResults(frame=frame, params=params, planned=planned, spec_path=str(spec_path),
                         names={cid: n.name for cid, n in view.names.items()},
-                        legend={cid: {"model": n.model, "worker": n.worker, "params": dict(n.params)}
+                        legend={cid: {"model": n.model, "worker": n.worker, "params": dict(n.params),
+                                      "given": sorted(given.get(n.model, set()) & set(n.params))}
                                 for cid, n in view.names.items()},
                         k=plan.k, repeats=plan.repeats, info={"view": view, **extra})
 
