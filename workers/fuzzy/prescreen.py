@@ -322,7 +322,9 @@ def _select(stats, outside: np.ndarray, share: float, cover_limit: int,
             break
         value = np.full(n_rules, -np.inf)
         at = np.flatnonzero(available)
-        value[at] = n_ac[at] / weight.sum() * (n_ac[at] / (outside[at] + n_ac[at]) - share)
+        n_a = outside[at] + n_ac[at]  # > 0 but for the rounding of the updates
+        precision = np.divide(n_ac[at], n_a, out=np.zeros(len(at)), where=n_a > 0)
+        value[at] = n_ac[at] / weight.sum() * (precision - share)
         best = first_best(value)
         chosen.append(best)
         available[best] = False
