@@ -174,89 +174,15 @@ class _Prefixed:
         rank = np.empty(len(prefixes), dtype=np.intp)
         rank[by_tail] = np.arange(len(prefixes))
         self.prefixes, self.prefix_of = prefixes[by_tail], rank[prefix_of]
-        self.by_prefix = np.argsort(self.prefix_of, kind="stable")  # rules grouped by prefix
-        self.starts = np.searchsorted(self.prefix_of[self.by_prefix], np.arange(len(self.prefixes) + 1))
-
-    def _direct(self, rows: np.ndarray) -> np.ndarray:
-        """Matching degrees ``(rows, rules)`` on a few examples, formed item by item."""
-        m = np.ascontiguousarray(self.members[:, rows].T)
-        out = np.take(m, self.columns[0], axis=1)
-        for col in self.columns[1:]:
-            out *= np.take(m, col, axis=1)
-        return out
-
-    def _table(self, rows: np.ndarray | None, weight: np.ndarray | None, nonzero: bool) -> np.ndarray:
-        if rows is not None and len(rows) <= _FEW:
-            degrees = self._direct(rows)
-            if nonzero:
-                return np.count_nonzero(degrees > 0, axis=0).astype(float)
-            return degrees.sum(axis=0) if weight is None else weight @ degrees
-        m = self.members if rows is None else self.members[:, rows]
-        if nonzero:
-            m = (m > 0).astype(float)
-        right = np.ascontiguousarray(m.T)  # (examples, items + 1)
-        out = np.empty(len(self.rules))
-        step = max(1, _BLOCK_FLOATS // max(1, m.shape[0], m.shape[1]))
+        by_prefix = np.argsort(self.prefix_of, kind="stable")  # rules grouped by prefix
+        starts = np.searchsorted(self.prefix_of[by_prefix], np.arange(len(self.prefixes) + 1))
+        # blocks of prefixes, fixed once: (prefixes, their rules, the rules' row and column in the table)
+        step = max(1, _BLOCK_FLOATS // max(1, members.shape[0], members.shape[1]))
+        self.blocks = []
         for s in range(0, len(self.prefixes), step):
-            block = self.prefixes[s: s + step]
-            left = m[block[:, 0]].copy()
-            for j in range(1, block.shape[1]):
-                left *= m[block[:, j]]
-            if weight is not None:
-                left *= weight
-            here = self.by_prefix[self.starts[s]: self.starts[min(s + step, len(self.prefixes))]]
+            here = by_prefix[starts[s]: starts[min(s + step, len(self.prefixes))]]
             cols, at = np.unique(self.last[here], return_inverse=True)
-            table = left @ right[:, cols]  # (prefixes, items): the block's extensions, all at once
-            out[here] = table[self.prefix_of[here] - s, at.ravel()]
-        return out
-
-    def sums(self, rows: np.ndarray | None, weight: np.ndarray | None) -> np.ndarray:
-        m = self.match if rows is None else self.match[:, rows]
-        return m.sum(axis=1) if weight is None else m @ weight
-
-    def counts(self, rows: np.ndarray | None) -> np.ndarray:
-        m = self.match if rows is None else self.match[:, rows]
-        return np.count_nonzero(m > 0, axis=1)
-
-    def degrees(self, rule: int) -> np.ndarray:
-        return self.match[rule]
-
-
-class _Prefixed:
-    """Sums over examples of the matching degrees of rules given by their items, by prefix.
-
-    ``members`` is the ``(n_items + 1, examples)`` membership matrix of the
-    examples (last row: padding ones); ``rules`` the padded items. A rule is
-    its prefix (all items but the last) extended by its last item, so the
-    weighted sums of all rules are ``(prefix degrees * weight) @ memberships.T``
-    read at (prefix, last item): one matrix product per block of prefixes.
-    """
-
-    def __init__(self, members: np.ndarray, rules: np.ndarray) -> None:
-        pad = members.shape[0] - 1
-        self.members, self.rules = members, rules
-        self.columns = [np.ascontiguousarray(col) for col in rules.T]
-        self.n_examples = members.shape[1]
-        length = np.count_nonzero(rules != pad, axis=1)
-        self.last = rules[np.arange(len(rules)), length - 1]
-        prefix = rules.copy()
-        prefix[np.arange(len(rules)), length - 1] = pad
-        # the distinct prefixes (integer sorts; np.unique over rows is much slower)
-        order = np.lexsort(prefix.T[::-1])
-        new = np.r_[True, np.any(prefix[order][1:] != prefix[order][:-1], axis=1)]
-        prefixes = prefix[order][new]
-        prefix_of = np.empty(len(rules), dtype=np.intp)
-        prefix_of[order] = np.cumsum(new) - 1
-        # prefixes by their last item: the prefixes of a block then extend by few distinct items,
-        # and a block's product covers only those (columns)
-        plen = np.count_nonzero(prefixes != pad, axis=1)
-        tail = np.where(plen > 0, prefixes[np.arange(len(prefixes)), np.maximum(plen - 1, 0)], -1)
-        by_tail = np.argsort(tail, kind="stable")
-        rank = np.empty(len(prefixes), dtype=np.intp)
-        rank[by_tail] = np.arange(len(prefixes))
-        self.prefixes, self.prefix_of = prefixes[by_tail], rank[prefix_of]
-        self.by_prefix = np.argsort(self.prefix_of, kind="stable")  # rules grouped by prefix
-        self.starts = np.searchsorted(self.prefix_of[self.by_prefix], np.arange(len(self.prefixes) + 1))
+            self.blocks.append((self.prefixes[s: s + step], here, cols, self.prefix_of[here] - s, at.ravel()))
 
     def _direct(self, rows: np.ndarray) -> np.ndarray:
         """Matching degrees ``(rows, rules)`` on a few examples, formed item by item."""
@@ -277,17 +203,14 @@ class _Prefixed:
             m = (m > 0).astype(float)
         right = np.ascontiguousarray(m.T)  # (examples, items + 1)
         out = np.empty(len(self.rules))
-        step = max(1, _BLOCK_FLOATS // max(1, m.shape[0], m.shape[1]))
-        for s in range(0, len(self.prefixes), step):
-            block = self.prefixes[s: s + step]
+        for block, here, cols, row, col in self.blocks:
             left = m[block[:, 0]].copy()
             for j in range(1, block.shape[1]):
                 left *= m[block[:, j]]
             if weight is not None:
                 left *= weight
-            table = left @ right  # (prefixes, items + 1): every extension of every prefix in the block
-            here = (self.prefix_of >= s) & (self.prefix_of < s + step)
-            out[here] = table[self.prefix_of[here] - s, self.last[here]]
+            table = left @ right[:, cols]  # (prefixes, items): the block's extensions, all at once
+            out[here] = table[row, col]
         return out
 
     def sums(self, rows: np.ndarray | None, weight: np.ndarray | None) -> np.ndarray:
