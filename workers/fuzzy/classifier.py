@@ -113,7 +113,10 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
     modules. Here: during the genetic stage an uncovered training example
     counts as misclassified (a rule base that covers less is worse), while
     ``predict`` gives it the majority class; the rule weights stay those of
-    the mining stage (computed with the untuned labels).
+    the mining stage (computed with the untuned labels). Whether the paper
+    recomputes the weights after lateral tuning, and how it treats
+    uncovered examples, was not checked against its text (issue 11): these
+    choices are kept unmeasured.
     """
 
     def __init__(self, labels: int = 5, min_support: float = 0.05, max_confidence: float = 0.8,

@@ -22,7 +22,21 @@ in the rule base). CHC (Eshelman 1991) as used by FARC-HD:
 
 Choices left open by the method, documented here: the decrement of L by
 one (Eshelman's original), alpha = 1, and random restarts around nothing
-but the best chromosome. Everything random comes from one
+but the best chromosome.
+
+Points checked against the paper (issue 11) where this module is not sure
+of what FARC-HD (Alcalá-Fdez, Alcalá, Herrera, IEEE TFS 19(5) 2011) does:
+
+* offspring per mating: here two, child k taking PCBLX's child k and HUX's
+  child k. The genetic lateral tuning with rule selection that FARC-HD
+  builds on (Alcalá, Alcalá-Fdez, Herrera, IEEE TFS 15(4) 2007) combines the
+  two PCBLX children with the two HUX children into four and keeps the best
+  two (from memory, not checked against the FARC-HD text); not changed, not
+  measured;
+* threshold: L starts at a quarter of the chromosome's bit length and drops
+  by one per generation without a surviving offspring (from memory the 2007
+  paper may drop it by the bits of one real gene); restart when L < 0. Not
+  changed, not measured. Everything random comes from one
 ``numpy.random.Generator``, so a seed fixes the run.
 """
 
