@@ -286,6 +286,24 @@ def test_chc_solves_onemax_within_budget_deterministically():
     assert a.fitness == b.fitness and np.array_equal(a.real, b.real)
 
 
+def test_chc_four_offspring_keeps_the_best_two_of_each_mating():
+    # the four-offspring mating of Alcala, Alcala-Fdez, Herrera (IEEE TFS 15(4), 2007; from memory):
+    # both PCBLX children with both HUX children, the best two of each four enter the survival
+    from workers.fuzzy.genetic import _best_two_of_four
+
+    real = np.arange(8.0)[:, None]
+    bits = np.zeros((8, 2), dtype=bool)
+    fit = np.array([0.1, 0.9, 0.5, 0.7, 0.3, 0.3, 0.2, 0.8])
+    r, _, f = _best_two_of_four(real, bits, fit)
+    assert list(r[:, 0]) == [1, 3, 4, 7] and list(f) == [0.9, 0.7, 0.3, 0.8]  # a tie keeps the first
+
+    def onemax(reals, bits):
+        return bits.mean(axis=1) - np.abs(reals).mean(axis=1)
+
+    out = chc(onemax, 3, 24, 20, 3000, np.random.default_rng(5), four=True)
+    assert out.bits.all() and out.evaluations == 3000
+
+
 def test_chc_restarts_when_population_stalls():
     # flat fitness: no offspring is ever strictly better, so L falls below 0 and CHC restarts
     out = chc(lambda r, b: np.zeros(len(r)), 1, 4, 10, 500, np.random.default_rng(0))

@@ -65,8 +65,8 @@ def report(estimator: Any, X_test: Any) -> dict[str, Any]:
 def check(params: dict[str, Any]) -> list[str]:
     """Problems across parameters of one complete parameter set (defaults filled in)."""
     if params["min_confidence"] > params["max_confidence"]:
-        return [f"min_confidence ({params['min_confidence']!r}) must not exceed "
-                f"max_confidence ({params['max_confidence']!r})"]
+        return [(f"min_confidence ({params['min_confidence']!r}) must not exceed "
+                 f"max_confidence ({params['max_confidence']!r})")]
     return []
 
 
