@@ -21,6 +21,8 @@ import json
 import sys
 from typing import Any
 
+from sweep.cli import _positive, number_between, out_file
+
 __all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot"]
 
 
@@ -34,7 +36,7 @@ def add_commands(subparsers: Any) -> None:
     table.add_argument("--sd", action="store_true", help="show mean ± standard deviation")
     table.add_argument("--pivot", default=None, metavar="PARAM",
                        help="columns are this parameter's values (fix the others with --where)")
-    table.add_argument("--decimals", type=int, default=3)
+    table.add_argument("--decimals", type=number_between(0, 15, integer=True), default=3)
     table.set_defaults(func=cmd_table)
 
     compare = _command(subparsers, "compare", "two configurations paired over datasets: wins/ties/losses, sign test, Wilcoxon",
@@ -48,14 +50,14 @@ def add_commands(subparsers: Any) -> None:
 
     rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
     _rank_options(rank)
-    rank.add_argument("--limit", type=int, default=20, help="rows shown of rankings and post-hoc tables")
+    rank.add_argument("--limit", type=_positive, default=20, help="rows shown of rankings and post-hoc tables")
     rank.set_defaults(func=cmd_rank)
 
     plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
     plot.add_argument("--kind", choices=("ranks", "heatmap"), default="ranks")
-    plot.add_argument("--out", required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
+    plot.add_argument("--out", type=out_file, required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
     plot.add_argument("--pivot", default=None, metavar="PARAM", help="heatmap columns are this parameter's values")
-    plot.add_argument("--limit", type=int, default=20, help="configurations drawn in the rank plot (best first)")
+    plot.add_argument("--limit", type=_positive, default=20, help="configurations drawn in the rank plot (best first)")
     _rank_options(plot)
     plot.set_defaults(func=cmd_plot)
 
@@ -73,7 +75,8 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
         parser.add_argument("--where", default=None, metavar="FILTER",
                             help="only configurations matching an id or a filter such as reasoning=choquet,measure=power")
     if out:
-        parser.add_argument("--out", default=None, metavar="FILE", help="write to FILE (atomically) instead of standard output")
+        parser.add_argument("--out", type=out_file, default=None, metavar="FILE",
+                            help="write to FILE (atomically) instead of standard output")
     parser.add_argument("--json", action="store_true", help="machine-readable output")
     return parser
 
@@ -82,7 +85,7 @@ def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
                         default="auto", help="adjustment: holm against a control, shaffer over all pairs (auto)")
-    parser.add_argument("--alpha", type=float, default=0.05)
+    parser.add_argument("--alpha", type=number_between(0, 1, open_ends=True), default=0.05)
     parser.add_argument("--tie-correction", action="store_true",
                         help="divide chi2_F by the tie correction, as scipy.stats.friedmanchisquare (default: Demšar's formula)")
 

@@ -506,15 +506,21 @@ class Store:
 
     def done_results(self, *, scheme: str, fingerprints: Sequence[str], repeats: int, k: int,
                      figures: bool = True, keys: bool = True, hosts: bool = True,
-                     metrics: Sequence[str]) -> tuple[list[tuple[Any, ...]], list[str]]:
+                     metrics: Sequence[str], names: Mapping[str, str] | None = None,
+                     ) -> tuple[list[tuple[Any, ...]], list[str]]:
         """(rows, column names) of the results on these datasets (fingerprints) and folds, with the
         ``metrics`` columns.
+
+        ``names`` (fingerprint -> dataset name) names each row's dataset as the caller's spec does; else it
+        is the name under which the job was first planned (a result is shared by every sweep that plans
+        its job, whatever each calls the data).
 
         One scan of the results table, no join. The caller keeps the rows of
         its plan's configurations (see ``versions``).
         """
         r = results_table.c
-        columns = [r.dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in metrics)]
+        dataset = sa.case(dict(names), value=r.fingerprint, else_=r.dataset).label("dataset") if names else r.dataset
+        columns = [dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in metrics)]
         columns = ([r.key] if keys else []) + columns + ([r.worker_version, r.host] if hosts else [])
         if figures:
             columns.append(r.figures)

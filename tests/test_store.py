@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import socket
 import sqlite3
@@ -10,6 +11,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -234,3 +236,160 @@ def test_folds_round_trip_and_missing_classes_are_reported(store: Store) -> None
     np.testing.assert_array_equal(loaded[(0, 0)], [0, 3, 5])
     np.testing.assert_array_equal(loaded[(0, 1)], [1, 2, 4])
     assert store.fold_warnings(SCHEME, "fp0") == [(0, 1, [2])]
+
+
+# ---- one store, several sweeps: a job is shared by every sweep that plans it --------------------
+
+def test_a_job_planned_by_two_sweeps_is_stored_once_and_counted_by_both(store: Store) -> None:
+    assert store.sync_jobs("other", SCHEME, planned(8)) == 2  # 6 of its 8 jobs are store-test's already
+    (job,) = store.claim("other", "host:1:b", 1, 60, 3)
+    store.commit_results("host:1:b", [ok_result(job.key)])
+    assert store.counts(SWEEP)["done"] == 1 and store.counts("other")["done"] == 1
+    assert len(store.claim(SWEEP, "host:1:a", 10, 60, 3)) == 5  # never a job the other one holds or did
+    assert len(store.claim("other", "host:1:b", 10, 60, 3)) == 2
+
+
+def test_a_smaller_plan_of_one_sweep_leaves_the_others_counts_alone(store: Store) -> None:
+    store.sync_jobs("other", SCHEME, planned(6))
+    store.sync_jobs(SWEEP, SCHEME, planned(2))
+    assert sum(store.counts(SWEEP).values()) == 2 and sum(store.counts("other").values()) == 6
+    assert len(store.job_states([j.key for j in planned(6)])) == 6
+
+
+def test_claimed_jobs_carry_the_claiming_sweeps_name_for_the_data(store: Store) -> None:
+    renamed = [j._replace(dataset="flowers") for j in planned(6)]
+    store.sync_jobs("other", SCHEME, renamed)
+    assert {c.dataset for c in store.claim("other", "host:1:b", 6, 60, 3)} == {"flowers"}
+    assert store.sweep_fingerprints("other") == {"flowers": {"fp0"}}
+    assert store.sweep_fingerprints(SWEEP) == {"iris": {"fp0"}}
+
+
+# ---- reads: no write lock, read-only stores --------------------------------------------------
+
+def test_a_read_does_not_wait_for_a_writer(store: Store) -> None:
+    writer = sqlite3.connect(store.url[len("sqlite:///"):], isolation_level=None)
+    try:
+        writer.execute("BEGIN IMMEDIATE")  # a driver in the middle of a commit
+        writer.execute("UPDATE jobs SET attempts = 1")
+        started = time.monotonic()
+        reader = Store.open(store.url, create=False)
+        try:
+            assert reader.counts(SWEEP)["pending"] == 6
+        finally:
+            reader.close()
+        assert time.monotonic() - started < 5  # the busy timeout is 60 s: a read that queued would show
+    finally:
+        writer.execute("ROLLBACK")
+        writer.close()
+
+
+def test_a_store_opened_for_reading_is_opened_read_only(store: Store) -> None:
+    reader = Store.open(store.url, create=False)
+    try:
+        with pytest.raises(StoreError, match="cannot be written.*nothing committed was lost"):
+            reader.sync_jobs(SWEEP, SCHEME, planned(7))
+    finally:
+        reader.close()
+
+
+def test_durability_is_synchronous_full(store: Store) -> None:
+    # common practice (sqlite.org/pragma.html#pragma_synchronous): in WAL mode, NORMAL may lose the
+    # transactions since the last checkpoint on a power cut or OS crash; FULL syncs the log at each commit
+    with store.engine.connect() as conn:
+        assert conn.exec_driver_sql("PRAGMA synchronous").scalar() == 2  # 2 = FULL
+        assert conn.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
+
+
+# ---- end to end: two specs on one store, a grid changed under one name, a dataset renamed ---------
+
+SHARED = """
+name = "a"
+store = "shared.sqlite"
+[folds]
+k = 3
+seed = 4
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[dataset]]
+name = "wine"
+builtin = "wine"
+[[model]]
+worker = "decision_tree"
+grid = { max_depth = [1, 2, 3, 4, 5] }
+"""
+SHARED_JOBS = 2 * 5 * 3
+
+
+def _spec(folder: Path, name: str, text: str) -> Path:
+    path = folder / f"{name}.toml"
+    path.write_text(text)
+    return path
+
+
+def _json(*args: Any) -> Any:
+    from tests.conftest import run_foldsweep
+
+    proc = run_foldsweep(*args, "--json")
+    assert proc.returncode == 0 and not proc.stderr.strip(), proc.stderr  # no warning either
+    text = proc.stdout.strip()
+    return json.loads(text if args[0] != "run" else text.splitlines()[-1])  # run prints progress first
+
+
+def _status(spec: Path) -> dict[str, int]:
+    return {k: v for k, v in _json("status", spec).items() if k != "failures"}
+
+
+def _all_done(n: int) -> dict[str, int]:
+    return {"total": n, "done": n, "failed": 0, "pending": 0, "running": 0}
+
+
+@pytest.mark.slow
+def test_two_specs_differing_only_by_name_share_one_store(tmp_path: Path) -> None:
+    a = _spec(tmp_path, "a", SHARED)
+    b = _spec(tmp_path, "b", SHARED.replace('name = "a"', 'name = "b"'))
+    assert _json("run", a, "--workers", "1", "--progress", "none")["ran"] == SHARED_JOBS
+    summary = _json("run", b, "--workers", "1", "--progress", "none")
+    assert (summary["ran"], summary["new"], summary["done"], summary["pending"]) == (0, 0, SHARED_JOBS, 0)
+    assert _status(b) == _status(a) == _all_done(SHARED_JOBS)
+    best_a, best_b = _json("best", a), _json("best", b)
+    assert best_a == best_b and {r["folds"] for r in best_b} == {3}
+    db = tmp_path / "shared.sqlite"
+    with sqlite3.connect(db) as conn:  # one job and one result per cell, planned by both sweeps
+        assert conn.execute("SELECT count(*) FROM results").fetchone() == (SHARED_JOBS,)
+        assert conn.execute("SELECT sweep, count(*) FROM sweep_jobs GROUP BY sweep").fetchall() == [
+            ("a", SHARED_JOBS), ("b", SHARED_JOBS)]
+    conn.close()
+
+
+@pytest.mark.slow
+def test_a_grid_changed_under_one_name_keeps_the_first_grids_jobs_done(tmp_path: Path) -> None:
+    first = _spec(tmp_path, "first", SHARED)
+    second = _spec(tmp_path, "second", SHARED.replace("[1, 2, 3, 4, 5]", "[4, 5, 6]"))  # also name = "a"
+    _json("run", first, "--workers", "1", "--progress", "none")
+    assert _json("run", second, "--workers", "1", "--progress", "none")["ran"] == 2 * 1 * 3  # only depth 6
+    assert _status(first) == _all_done(SHARED_JOBS)  # depths 1-3 are no longer "a"'s plan, still done
+    assert _status(second) == _all_done(2 * 3 * 3)
+    table = _json("table", first)
+    assert len(table["columns"]) == 5 and len(table["rows"]) == 2, table  # every cell of the first grid
+    assert all(r["complete"] and r["folds"] == 3 for r in _json("best", first))
+    summary = _json("run", first, "--workers", "1", "--progress", "none")
+    assert (summary["ran"], summary["done"]) == (0, SHARED_JOBS)
+
+
+@pytest.mark.slow
+def test_a_dataset_renamed_in_the_spec_is_reported_under_its_new_name(tmp_path: Path) -> None:
+    spec = _spec(tmp_path, "a", SHARED)
+    _json("run", spec, "--workers", "1", "--progress", "none")
+    spec.write_text(SHARED.replace('name = "iris"', 'name = "flowers"'))
+    assert _json("run", spec, "--workers", "1", "--progress", "none")["ran"] == 0  # same content, same jobs
+    assert _status(spec) == _all_done(SHARED_JOBS)
+    best = _json("best", spec)  # _json: no RuntimeWarning or other line on stderr
+    assert sorted(r["dataset"] for r in best) == ["flowers", "wine"]
+    assert all(r["folds"] == 3 and r["complete"] for r in best), best
+    from tests.conftest import run_foldsweep
+
+    rows = run_foldsweep("results", spec, "--format", "json").stdout.splitlines()
+    assert {json.loads(r)["dataset"] for r in rows} == {"flowers", "wine"}
+    text = run_foldsweep("best", spec).stdout
+    assert "iris" not in text and "no finished jobs" not in text and "incomplete" not in text, text
