@@ -40,9 +40,9 @@ import os
 import socket
 import time
 import uuid
-from urllib.parse import quote
 from dataclasses import dataclass
 from typing import Any, Iterable, Literal, Mapping, Sequence
+from urllib.parse import quote
 
 import numpy as np
 import sqlalchemy as sa

@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import shutil
 import socket
 import sqlite3
 import subprocess
@@ -393,3 +394,56 @@ def test_a_dataset_renamed_in_the_spec_is_reported_under_its_new_name(tmp_path: 
     assert {json.loads(r)["dataset"] for r in rows} == {"flowers", "wine"}
     text = run_foldsweep("best", spec).stdout
     assert "iris" not in text and "no finished jobs" not in text and "incomplete" not in text, text
+
+
+# ---- a read-only store is readable by status and every report ----------------------------------
+
+def _read_everything(spec: Path, out: Path) -> None:
+    """status, results, model and every report on ``spec``: each exits 0 with no line on stderr."""
+    from tests.conftest import run_foldsweep
+
+    rows = [json.loads(r) for r in run_foldsweep("results", spec, "--format", "json").stdout.splitlines()]
+    assert len(rows) == SHARED_JOBS
+    configs = sorted({r["config_id"] for r in rows})
+    commands = [["status"], ["results"], ["model", rows[0]["key"]], ["best"], ["table"],
+                ["compare", configs[0], configs[1]], ["rank"], ["plot", "--out", str(out)]]
+    for command in commands:
+        proc = run_foldsweep(command[0], spec, *command[1:])
+        assert proc.returncode == 0 and not proc.stderr.strip(), (command, proc.stderr)
+    assert out.stat().st_size > 0
+
+
+@pytest.mark.slow
+def test_a_read_only_store_is_readable_by_status_and_every_report(tmp_path: Path) -> None:
+    src = tmp_path / "src"
+    src.mkdir()
+    spec = _spec(src, "a", SHARED)
+    _json("run", spec, "--workers", "2", "--progress", "none")
+    db = src / "shared.sqlite"
+    assert not (src / "shared.sqlite-wal").exists()
+    before = digest(db)
+    mounted = tmp_path / "ro"
+    mounted.mkdir()
+    shutil.copytree(src, tmp_path / "copy")
+    # a read-only bind mount: even root cannot write there (a file's mode 0444 does not stop root)
+    if subprocess.run(["mount", "--bind", "-o", "ro", str(tmp_path / "copy"), str(mounted)],
+                      capture_output=True).returncode != 0:
+        mounted = None
+    try:
+        if mounted is not None:
+            assert not os.access(mounted, os.W_OK)
+            _read_everything(mounted / "a.toml", tmp_path / "ranks-mounted.png")
+            assert digest(mounted / "shared.sqlite") == before
+            assert sorted(p.name for p in mounted.iterdir()) == ["a.toml", "shared.sqlite"]
+    finally:
+        if mounted is not None:
+            subprocess.run(["umount", "-l", str(mounted)], capture_output=True)
+    db.chmod(0o444)
+    src.chmod(0o555)
+    try:
+        _read_everything(spec, tmp_path / "ranks.png")
+    finally:
+        src.chmod(0o755)
+    assert digest(db) == before
+    if mounted is None:
+        pytest.skip("a read-only bind mount is not permitted here (needs CAP_SYS_ADMIN): checked mode 0444 only")
