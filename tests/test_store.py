@@ -450,3 +450,16 @@ def test_a_read_only_store_is_readable_by_status_and_every_report(tmp_path: Path
     assert digest(db) == before
     if mounted is None:
         pytest.skip("a read-only bind mount is not permitted here (needs CAP_SYS_ADMIN): checked mode 0444 only")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("folder", ["what?now", "100%25 sure#1"])
+def test_a_store_path_is_a_path_even_with_url_characters(tmp_path: Path, folder: str) -> None:
+    # "?", "%" and "#" in a folder's name are part of the path, not a URL's query, escape or fragment
+    home = tmp_path / folder
+    home.mkdir()
+    spec = _spec(home, "a", SHARED.replace("[1, 2, 3, 4, 5]", "[1]"))
+    assert _json("run", spec, "--workers", "1", "--progress", "none")["done"] == 2 * 3
+    assert sorted(p.name for p in home.iterdir()) == ["a.toml", "shared.sqlite"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == [folder]
+    assert _status(spec) == _all_done(2 * 3)
