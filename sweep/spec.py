@@ -57,6 +57,8 @@ MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies")
 
 #: longest sweep, dataset, model block and worker name: the tracker's String(200) columns
 NAME_LIMIT = 200
+#: longest worker version (the tracker's String(64) column)
+VERSION_LIMIT = 64
 #: the largest seed numpy's generators take
 MAX_SEED = 2**32 - 1
 #: a year: the longest time_limit (a timer's wait must stay finite)
@@ -304,12 +306,16 @@ def _model(block: Any, where: str) -> ModelBlock:
         raise SpecError(f"{where}: worker {name!r} is not of the form \"package.module:attribute\" "
                         "(dotted Python names, no relative import)")
     try:
-        declared = get_worker(name).params
+        worker = get_worker(name)
+        declared = worker.params
     except KeyError as exc:
         raise SpecError(f"{where}: worker: {exc.args[0]}") from None
     except Exception as exc:  # noqa: BLE001 - importing a plug-in runs its code: whatever it raises
         detail = " ".join(f"{type(exc).__name__}: {exc}".split())[:200]
         raise SpecError(f"{where}: worker {name!r}: importing its module failed ({detail})") from None
+    if not isinstance(worker.version, str) or not 0 < len(worker.version) <= VERSION_LIMIT:
+        raise SpecError(f"{where}: worker {name!r} declares version {worker.version!r}; a worker version is a "
+                        f"string of 1 to {VERSION_LIMIT} characters (the tracker's column)")
     where = f"{where} {block.get('name', name)!r}"
     fixed = _table(block.get("fixed", {}), where, "fixed")
     grid = _table(block.get("grid", {}), where, "grid")

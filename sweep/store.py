@@ -191,9 +191,10 @@ class Store:
         path = sqlite_path(url)
         if path is not None:
             _check_sqlite_file(path, create)
+        check = path is not None and create and os.path.exists(path)  # a file made before: check it first
         engine = _engine(url, readonly=not create)
         try:
-            return cls._opened(engine, url, create)
+            return cls._opened(engine, url, create, check)
         except StoreError as exc:
             engine.dispose()
             if path is None or create or "unable to open" not in str(exc) or os.access(os.path.dirname(path), os.W_OK):
@@ -205,14 +206,16 @@ class Store:
         # a read-only folder, no write-ahead log: nothing can change the file while it is read
         engine = _engine(url, readonly=True, immutable=True)
         try:
-            return cls._opened(engine, url, create)
+            return cls._opened(engine, url, create, False)
         except StoreError:
             engine.dispose()
             raise
 
     @classmethod
-    def _opened(cls, engine: sa.Engine, url: str, create: bool) -> "Store":
+    def _opened(cls, engine: sa.Engine, url: str, create: bool, check: bool) -> "Store":
         store = cls(engine, url, readonly=not create)
+        if check:
+            store._check_integrity()
         version = store._schema_version()
         if version is None:
             if not create:
@@ -222,8 +225,6 @@ class Store:
             raise SchemaVersionError(
                 f"{_where(url)}: store has schema version {version}, this foldsweep reads version "
                 f"{SCHEMA_VERSION}; use the foldsweep release that wrote it, or point 'store' elsewhere")
-        elif create and store.is_sqlite:
-            store._check_integrity()
         if create and store.is_sqlite:
             raw = engine.raw_connection()
             try:

@@ -143,6 +143,10 @@ CASES: dict[str, Case] = {
                                           "importing its module failed (SyntaxError",
                                           module("broken_plugin", "def W(:\n")),
     "worker module missing": (model('worker = "absent_plugin:W"'), ["run"], "cannot be imported", None),
+    "worker version too long for the store": (
+        model('worker = "long_version:W"'), ["run"], "a worker version is a string of 1 to 64 characters",
+        module("long_version", "from workers.registry import Worker\n"
+                               "W = Worker(name='w', version='v' * 65, params={}, build=lambda p, d: None)\n")),
     # -- stores ----------------------------------------------------------------------------------
     "store = sqlite:// (in memory)": (with_store("sqlite://"), ["run"], "in-memory SQLite database keeps nothing",
                                       None),
@@ -476,10 +480,11 @@ def test_names_of_200_characters_fit_postgres_columns(tmp_path: Path, pg_url: st
 
 
 def test_the_name_limit_is_the_stores_column_width() -> None:
-    from sweep.spec import NAME_LIMIT
+    from sweep.spec import NAME_LIMIT, VERSION_LIMIT
     from sweep.store import configurations_table, jobs_table, results_table, sweep_jobs_table, sweeps_table
 
     for column in (sweeps_table.c.name, sweep_jobs_table.c.sweep, sweep_jobs_table.c.dataset, jobs_table.c.sweep,
                    jobs_table.c.dataset, results_table.c.dataset, configurations_table.c.worker,
                    configurations_table.c.label):
         assert column.type.length == NAME_LIMIT, column
+    assert results_table.c.worker_version.type.length == VERSION_LIMIT
