@@ -412,9 +412,7 @@ class Store:
         """Atomically take up to ``n`` pending jobs of ``sweep`` for ``owner``."""
         now = time.time()
         c = jobs_table.c
-        m = sweep_jobs_table.c
-        # the sweep's own name for the job's dataset (another sweep may have planned the job first)
-        name = sa.select(m.dataset).where(m.sweep == sweep, m.key == c.key).scalar_subquery()
+        name = _sweeps_name(sweep)
         query = (sa.select(c.key, name, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts)
                  .where(c.state == "pending", c.attempts < max_attempts, _planned_by(sweep))
                  .limit(n).with_for_update(of=jobs_table, skip_locked=True))
@@ -558,6 +556,47 @@ class Store:
             return [tuple(r) for r in conn.execute(sa.select(j.key, j.error, j.timed_out).where(
                 j.state == "failed", _planned_by(sweep)))]
 
+    # ---- reading for the reports (sweep.results): the tracker alone, no dataset file ---------
+
+    def sweep_datasets(self, sweep: str) -> dict[str, str]:
+        """Dataset name -> fingerprint of the jobs ``sweep`` plans: the data its results were computed on,
+        under the names its spec gave them when it was last planned (reports need no dataset file)."""
+        m = sweep_jobs_table.c
+        query = (sa.select(m.dataset, jobs_table.c.fingerprint).distinct()
+                 .select_from(sweep_jobs_table.join(jobs_table, jobs_table.c.key == m.key))
+                 .where(m.sweep == sweep, m.active))
+        with self.reader.connect() as conn:
+            return dict(conn.execute(query).all())
+
+    def cell_counts(self, sweep: str, states: Sequence[str] = STATES) -> list[tuple[str, str, str, int]]:
+        """(dataset, config_id, state, jobs) over the jobs ``sweep`` plans in ``states`` (whoever ran them;
+        the dataset under the sweep's own name). Driven by the state index, so that leaving out "done"
+        reads only the unfinished jobs."""
+        j = jobs_table.c
+        name = _sweeps_name(sweep).label("dataset")
+        query = (sa.select(name, j.config_id, j.state, sa.func.count())
+                 .where(j.state.in_(list(states)), _planned_by(sweep))
+                 .group_by(name, j.config_id, j.state))
+        with self.reader.connect() as conn:
+            return [(d, c, s, int(n)) for d, c, s, n in conn.execute(query)]
+
+    def failed_jobs(self, sweep: str) -> list[dict[str, Any]]:
+        """The failed jobs ``sweep`` plans: key, dataset (the sweep's name for it), config_id, repeat, fold,
+        attempts, error, timed_out."""
+        j = jobs_table.c
+        name = _sweeps_name(sweep).label("dataset")
+        query = (sa.select(j.key, name, j.config_id, j.repeat, j.fold, j.attempts, j.error, j.timed_out)
+                 .where(j.state == "failed", _planned_by(sweep))
+                 .order_by(name, j.config_id, j.repeat, j.fold))
+        with self.reader.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(query)]
+
+    def dataset_records(self, fingerprints: Sequence[str]) -> list[dict[str, Any]]:
+        """The datasets table's rows (fingerprint, name, source, shape, class counts) for ``fingerprints``."""
+        query = sa.select(datasets_table).where(datasets_table.c.fingerprint.in_(list(fingerprints)))
+        with self.reader.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(query)]
+
     def stored_model(self, key: str) -> dict[str, Any] | None:
         """The result row of job ``key`` as far as a reader of its model wants it (None: no result)."""
         c = results_table.c
@@ -574,6 +613,13 @@ def _planned_by(sweep: str, *, active: bool = True) -> Any:
     membership's primary key for each: O(jobs claimed), not O(jobs of the sweep), per claim."""
     m = sweep_jobs_table.c
     return sa.exists().where(m.sweep == sweep, m.key == jobs_table.c.key, *([m.active] if active else []))
+
+
+def _sweeps_name(sweep: str) -> Any:
+    """Column expression on ``jobs``: what ``sweep`` calls the job's dataset (another sweep may have
+    planned the job first, under another name)."""
+    m = sweep_jobs_table.c
+    return sa.select(m.dataset).where(m.sweep == sweep, m.key == jobs_table.c.key).scalar_subquery()
 
 
 def _result_row(r: Any) -> dict[str, Any]:
