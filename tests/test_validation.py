@@ -111,8 +111,9 @@ GLASS_BELOW_TREE = pytest.mark.xfail(strict=True, reason=(
     "item 2), a strict xfail so that the fix shows"))
 
 
-# digits at default parameters: about 2 minutes of CPU per fold job with today's mining (issue 11, item 6), too
-# slow for the suite's 15 minutes on 2 cores; FOLDSWEEP_VALIDATE_DIGITS=1 runs it
+# digits at default parameters: even with the fast mining, a fold job took about 2 minutes of wall time on our
+# shared 2-core machine (5 folds: 3-6 more minutes), too much for the suite's 15 minutes on 2 cores;
+# FOLDSWEEP_VALIDATE_DIGITS=1 runs it
 DIGITS_TOO_SLOW = pytest.mark.skipif(os.environ.get("FOLDSWEEP_VALIDATE_DIGITS") != "1", reason=(
     "digits at defaults takes minutes per fold job; set FOLDSWEEP_VALIDATE_DIGITS=1 to run it"))
 MARKS = {"glass": GLASS_BELOW_TREE, "digits": DIGITS_TOO_SLOW}
