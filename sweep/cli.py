@@ -105,7 +105,8 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def _describe_run(s: Any) -> str:
-    head = f"sweep {s.sweep!r}: {s.planned} jobs planned ({s.new} new), planning took {s.planning_seconds:.2f} s"
+    inner = f"{s.planned_inner} of them inner jobs of nested selection, " if s.planned_inner else ""
+    head = f"sweep {s.sweep!r}: {s.planned} jobs planned ({inner}{s.new} new), planning took {s.planning_seconds:.2f} s"
     if s.ran == 0 and s.pending == 0 and not s.interrupted:
         return f"{head}; nothing left to do: {s.done} done, {s.failed} failed"
     state = "interrupted" if s.interrupted else "finished"
@@ -123,27 +124,47 @@ def cmd_status(args: argparse.Namespace) -> int:
         store = open_store(inputs.spec, create=False)
     except NoStoreYet:
         store = None  # not run yet: everything is pending (and no file is created by asking)
+    states: dict[str, Any] = {}
     if store is not None:
         try:
             states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}
         finally:
             store.close()
-        for job in inputs.plan.jobs:
+        for job in inputs.plan.all_jobs:
             state, error, timed_out = states.get(job.key, ("pending", None, False))
-            counts[state] += 1
+            if not job.scheme:  # an inner job (nested selection) is counted apart, below
+                counts[state] += 1
             if state == "failed":
                 message = "timed out" if timed_out else _last_line(error)
                 failures[message] = failures.get(message, 0) + 1
     else:
         counts["pending"] = counts["total"]
+    nested = _nested_status(inputs.plan, states)
     if args.json:
-        print(json.dumps({**counts, "failures": failures}))
+        print(json.dumps({**counts, **nested, "failures": failures}))
         return 0
     print(f"sweep {inputs.spec.name!r}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
           f"{counts['running']} running, {counts['pending']} pending")
+    if nested:
+        inner, (selected, total) = nested["inner"], nested["selections"].values()
+        print(f"  inner jobs (nested selection): {inner['done']}/{inner['total']} done, {inner['failed']} failed, "
+              f"{inner['running']} running, {inner['pending']} pending; {selected}/{total} outer folds "
+              "(dataset x model block x repeat x fold) have a selection")
     for message, n in sorted(failures.items(), key=lambda kv: -kv[1]):
         print(f"  {n} failed: {message}")
     return 0
+
+
+def _nested_status(plan: Any, states: dict[str, Any]) -> dict[str, Any]:
+    """``inner`` (inner jobs per state) and ``selections`` (outer folds with a selection / to select for),
+    or nothing for a sweep without nested selection."""
+    if not plan.inner_k:
+        return {}
+    from sweep.nested import inner_counts, selection_progress
+
+    state = {key: rest[0] for key, rest in states.items()}
+    selected, total = selection_progress(plan, {key for key, s in state.items() if s == "done"})
+    return {"inner": inner_counts(plan, state), "selections": {"done": selected, "total": total}}
 
 
 def _last_line(error: str | None) -> str:

@@ -3,6 +3,7 @@
 ::
 
     foldsweep best SPEC [--metric M] [--where FILTER] [--json] [--out FILE]
+    foldsweep best SPEC --nested [--json] [--out FILE]   (nested selection: sweep.nested)
     foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--where FILTER] [--out FILE] [--json]
     foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
     foldsweep rank SPEC [--metric M] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
@@ -27,6 +28,9 @@ __all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "
 def add_commands(subparsers: Any) -> None:
     """Add the report subcommands to an ``argparse`` subparsers object."""
     best = _command(subparsers, "best", "per dataset: the winning configuration, mean ± sd, margin to the runner-up")
+    best.add_argument("--nested", action="store_true",
+                      help="per dataset and model block: the nested estimate (inner-fold selection, the spec's "
+                           "[selection]) beside the naive best, and each outer fold's choice")
     best.set_defaults(func=cmd_best)
 
     table = _command(subparsers, "table", "datasets x configurations table of cell means")
@@ -35,6 +39,7 @@ def add_commands(subparsers: Any) -> None:
     table.add_argument("--pivot", default=None, metavar="PARAM",
                        help="columns are this parameter's values (fix the others with --where)")
     table.add_argument("--decimals", type=int, default=3)
+    _tuned_option(table)
     table.set_defaults(func=cmd_table)
 
     compare = _command(subparsers, "compare", "two configurations paired over datasets: wins/ties/losses, sign test, Wilcoxon",
@@ -44,11 +49,13 @@ def add_commands(subparsers: Any) -> None:
     compare.add_argument("--zero-method", choices=("demsar", "wilcox", "pratt"), default="demsar",
                          help="zero differences: split between R+ and R- (Demšar), dropped (wilcox) or ranked then dropped (pratt)")
     compare.add_argument("--method", choices=("auto", "exact", "approx"), default="auto", help="Wilcoxon p-value")
+    _tuned_option(compare)
     compare.set_defaults(func=cmd_compare)
 
     rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
     _rank_options(rank)
     rank.add_argument("--limit", type=int, default=20, help="rows shown of rankings and post-hoc tables")
+    _tuned_option(rank)
     rank.set_defaults(func=cmd_rank)
 
     plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
@@ -78,6 +85,12 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
     return parser
 
 
+def _tuned_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--tuned", action="store_true",
+                        help="add one row per model block, 'NAME (tuned)': per outer fold the configuration its "
+                             "inner folds selected (needs [selection] in the spec)")
+
+
 def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
@@ -91,7 +104,12 @@ def _load(args: argparse.Namespace):
     from sweep.results import load_sweep_results
 
     metric = getattr(args, "metric", None)
-    return load_sweep_results(args.spec, metrics=[metric] if metric else None)
+    res = load_sweep_results(args.spec, metrics=[metric] if metric else None)
+    if getattr(args, "tuned", False):
+        from sweep.nested import add_tuned
+
+        res = add_tuned(res)
+    return res
 
 
 def _emit(args: argparse.Namespace, text: str) -> None:
@@ -111,6 +129,8 @@ def _dumps(data: Any) -> str:
 def cmd_best(args: argparse.Namespace) -> int:
     from sweep import report
 
+    if args.nested:
+        return _best_nested(args)
     res = _load(args)
     frame = report.best(res, args.metric, where=args.where, higher=args.higher)
     if args.json:
@@ -133,6 +153,45 @@ def _best_text(frame) -> str:
         margin = "no runner-up" if r.margin != r.margin else f"margin {r.margin:.4f} over {r.runner_up}"
         lines.append(f"{r.dataset}: {r.config_id} ({r.worker}; {params}) {r.metric} {r.mean:.4f} ± {sd}, "
                      f"{r.folds}/{planned} folds, {margin}{state}")
+    return "\n".join(lines) + "\n"
+
+
+def _best_nested(args: argparse.Namespace) -> int:
+    from sweep.errors import SelectionError
+    from sweep.nested import load_nested
+
+    inputs, summary = load_nested(args.spec)
+    metric = inputs.spec.selection.metric
+    if args.metric not in (metric, "accuracy") or args.where:
+        raise SelectionError(f"{args.spec}: best --nested scores in the spec's selection.metric ({metric!r}) over "
+                             "every configuration of each block; leave out --metric and --where")
+    _emit(args, _dumps(summary) if args.json else _nested_text(inputs, summary))
+    return 0
+
+
+def _nested_text(inputs: Any, summary: list[dict[str, Any]]) -> str:
+    def number(value: float | None) -> str:
+        return "?" if value is None else f"{value:.4f}"
+
+    grids = {block.label: list(block.grid) for block in inputs.spec.models}
+    configs = inputs.plan.by_config
+
+    def name(config_id: str | None, model: str) -> str:
+        if config_id is None:
+            return "?"
+        params = configs[config_id].params
+        shown = ", ".join(f"{k}={params[k]}" for k in grids.get(model, []))
+        return f"{config_id} ({shown})" if shown else config_id
+
+    lines = []
+    for s in summary:
+        optimism = "" if s["optimism"] is None else f", optimism {s['optimism']:+.4f}"
+        lines.append(f"{s['dataset']} · {s['model']}: nested {s['metric']} {number(s['nested_accuracy'])} "
+                     f"({s['folds_selected']}/{s['folds']} outer folds selected), naive best "
+                     f"{number(s['naive_accuracy'])} [{name(s['naive_config'], s['model'])}]{optimism}")
+        for c in s["choices"]:
+            lines.append(f"  repeat {c['repeat']} fold {c['fold']}: {name(c['config'], s['model'])} "
+                         f"inner {c['inner_score']:.4f}, outer {number(c['outer_score'])}")
     return "\n".join(lines) + "\n"
 
 

@@ -85,6 +85,8 @@ class RunSummary:
     failed: int = 0
     pending: int = 0
     ran: int = 0
+    #: of ``planned``, the inner jobs of nested selection
+    planned_inner: int = 0
     requeued: int = 0
     interrupted: bool = False
     planning_seconds: float = 0.0
@@ -103,6 +105,10 @@ def load_inputs(spec_path: str | Path) -> Inputs:
         where = f"{spec.path}: dataset[{i}] {entry['name']!r}"
         data = cached_load(entry, spec.path.resolve().parent, where)
         check_feasible(data.y, data.classes, spec.folds, where)
+        if spec.selection is not None:
+            from sweep.nested import check_inner_feasible
+
+            check_inner_feasible(data.y, data.classes, spec.folds.k, spec.selection.inner_k, where)
         datasets[entry["name"]] = data
     workers = {m.worker: get_worker(m.worker) for m in spec.models}
     plan = make_plan(spec, {n: d.fingerprint for n, d in datasets.items()}, workers)
@@ -127,11 +133,19 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     for data in inputs.datasets.values():
         if not store.has_folds(plan.scheme, data.fingerprint):
             store.record_folds(plan.scheme, data.fingerprint, compute_folds(data.y, spec.folds))
+        if plan.inner_k:
+            from sweep.nested import compute_inner_folds, inner_scheme
+
+            inner = inner_scheme(plan.scheme, plan.inner_k)
+            if not store.has_folds(inner, data.fingerprint):
+                outer = compute_folds(data.y, spec.folds)
+                store.record_folds(inner, data.fingerprint,
+                                   compute_inner_folds(data.y, outer, plan.inner_k, spec.folds.seed))
         for repeat, fold, missing in store.fold_warnings(plan.scheme, data.fingerprint):
             names = ", ".join(repr(data.classes[c]) for c in missing)
             print(f"warning: dataset {data.name!r} repeat {repeat} fold {fold}: the training part lacks "
                   f"class {names}", file=out or sys.stderr)
-    return store.sync_jobs(spec.name, plan.scheme, plan.jobs)
+    return store.sync_jobs(spec.name, plan.scheme, plan.all_jobs)
 
 
 def _refuse_changed_data(store: Store, inputs: Inputs, accept: bool) -> None:
@@ -178,7 +192,8 @@ def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float
     store = open_store(inputs.spec)
     try:
         new = sync_store(store, inputs, accept_changed_data=options.accept_changed_data, out=out)
-        summary = RunSummary(inputs.spec.name, len(inputs.plan.jobs), new)
+        summary = RunSummary(inputs.spec.name, len(inputs.plan.all_jobs), new,
+                             planned_inner=len(inputs.plan.inner_jobs))
         summary.requeued = store.requeue_stale(inputs.spec.name)
         if options.retry_failed:
             summary.requeued += store.retry_failed(inputs.spec.name)
@@ -224,6 +239,8 @@ class _Loop:
         self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows
         self.configs = inputs.plan.by_config
         self.folds: dict[str, dict[tuple[int, int], Any]] = {}
+        self.inner_folds: dict[str, dict[tuple[int, int], Any]] = {}
+        self.inner_keys: set[str] = set()
         self.handles: dict[str, Any] = {}
         self.inflight: dict[Any, list[Claimed]] = {}
         self.isolated: list[Claimed] = []
@@ -236,8 +253,15 @@ class _Loop:
     def run(self, counts: Mapping[str, int]) -> None:
         from sweep.progress import Progress
 
+        inner = None
+        if self.inputs.plan.inner_k:
+            from sweep.nested import inner_scheme
+
+            self.inner_keys = {j.key for j in self.inputs.plan.inner_jobs}
+            known = self.store.counts(self.spec.name, inner_scheme(self.inputs.plan.scheme, self.inputs.plan.inner_k))
+            inner = (sum(known.values()), known["done"] + known["failed"])
         self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
-                                 mode=self.options.progress, stream=self.out)
+                                 mode=self.options.progress, stream=self.out, inner=inner)
         self.unclaimed = counts["pending"]
         last_commit = last_renew = time.monotonic()
         try:
@@ -354,16 +378,33 @@ class _Loop:
         from workers.job import Job
 
         fp = batch[0].fingerprint
+        plan = self.inputs.plan
         if fp not in self.folds:
-            self.folds[fp] = self.store.load_folds(self.inputs.plan.scheme, fp)
+            self.folds[fp] = self.store.load_folds(plan.scheme, fp)
+            if plan.inner_k:
+                from sweep.nested import inner_scheme
+
+                self.inner_folds[fp] = self.store.load_folds(inner_scheme(plan.scheme, plan.inner_k), fp)
             self.handles[fp] = self.executor.share(self.inputs.datasets[batch[0].dataset])
         jobs = []
         for c in batch:
             config = self.configs[c.config_id]
+            test, train = self._rows(c)
             jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
                             fingerprint=fp, repeat=c.repeat, fold=c.fold,
-                            test_index=self.folds[fp][(c.repeat, c.fold)], time_limit=self.spec.time_limit))
+                            test_index=test, time_limit=self.spec.time_limit, train_index=train))
         self.inflight[self.executor.submit(jobs, self.handles[fp])] = batch
+
+    def _rows(self, c: Claimed) -> tuple[Any, Any]:
+        """(test rows, training rows or None) of a claimed job (sweep.nested for an inner job's)."""
+        plan = self.inputs.plan
+        if not plan.inner_k or c.scheme in ("", plan.scheme):
+            return self.folds[c.fingerprint][(c.repeat, c.fold)], None
+        from sweep.nested import job_rows
+
+        n_rows = len(self.inputs.datasets[c.dataset].y)
+        return job_rows(self.folds[c.fingerprint], self.inner_folds[c.fingerprint], n_rows, plan.inner_k, True,
+                        c.repeat, c.fold)
 
     def _collect(self, future: Any) -> None:
         batch = self.inflight.pop(future)
@@ -399,7 +440,8 @@ class _Loop:
             return
         self.store.commit_results(self.owner, self.finished, self.give_up)
         ok = sum(r.ok for r in self.finished)
-        self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up))
+        inner = sum(r.key in self.inner_keys for r in self.finished) + sum(k in self.inner_keys for k in self.give_up)
+        self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up), inner=inner)
         self.finished, self.give_up = [], {}
 
 

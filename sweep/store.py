@@ -139,6 +139,8 @@ class Claimed:
     repeat: int
     fold: int
     attempts: int
+    #: the job's fold scheme (an inner job's differs from the plan's: sweep.nested)
+    scheme: str = ""
 
 
 def owner_id() -> str:
@@ -301,7 +303,7 @@ class Store:
             for chunk in _chunks(new, 5000):
                 _insert_new(conn, jobs_table, [
                     dict(key=j.key, sweep=sweep, active=True, dataset=j.dataset, fingerprint=j.fingerprint,
-                         config_id=j.config_id, scheme=scheme, repeat=j.repeat, fold=j.fold, state="pending",
+                         config_id=j.config_id, scheme=getattr(j, "scheme", "") or scheme, repeat=j.repeat, fold=j.fold, state="pending",
                          attempts=0, queued_at=now, timed_out=False) for j in chunk])
             activate = [k for k, active in have.items() if not active and k in wanted]
             retire = [k for k, active in have.items() if active and k not in wanted]
@@ -316,10 +318,11 @@ class Store:
             found.update(conn.execute(sa.select(jobs_table.c.key).where(jobs_table.c.key.in_(chunk))).scalars())
         return found
 
-    def counts(self, sweep: str) -> dict[str, int]:
-        """Jobs per state, for the active jobs of ``sweep``."""
+    def counts(self, sweep: str, scheme: str | None = None) -> dict[str, int]:
+        """Jobs per state, for the active jobs of ``sweep`` (of fold scheme ``scheme`` only, if given)."""
+        only = [] if scheme is None else [jobs_table.c.scheme == scheme]
         query = (sa.select(jobs_table.c.state, sa.func.count()).where(jobs_table.c.sweep == sweep,
-                 jobs_table.c.active).group_by(jobs_table.c.state))
+                 jobs_table.c.active, *only).group_by(jobs_table.c.state))
         with self.engine.connect() as conn:
             found = dict(conn.execute(query).all())
         return {state: int(found.get(state, 0)) for state in STATES}
@@ -351,7 +354,7 @@ class Store:
         """Atomically take up to ``n`` pending jobs of ``sweep`` for ``owner``."""
         now = time.time()
         c = jobs_table.c
-        query = (sa.select(c.key, c.dataset, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts)
+        query = (sa.select(c.key, c.dataset, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts, c.scheme)
                  .where(c.sweep == sweep, c.active, c.state == "pending", c.attempts < max_attempts)
                  .limit(n).with_for_update(skip_locked=True))
         # no ORDER BY: sorting every pending job at every claim costs O(pending) per claim; SQLite walks the
@@ -362,7 +365,7 @@ class Store:
                 conn.execute(sa.update(jobs_table).where(c.key.in_(chunk))
                              .values(state="running", owner=owner, lease_expires=now + lease_seconds,
                                      started_at=now, attempts=c.attempts + 1))
-        return [Claimed(r.key, r.dataset, r.fingerprint, r.config_id, r.repeat, r.fold, r.attempts + 1)
+        return [Claimed(r.key, r.dataset, r.fingerprint, r.config_id, r.repeat, r.fold, r.attempts + 1, r.scheme)
                 for r in rows]
 
     def renew(self, owner: str, keys: Sequence[str], lease_seconds: float) -> None:
