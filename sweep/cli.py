@@ -216,8 +216,8 @@ def cmd_model(args: argparse.Namespace) -> int:
 def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
     """The planned job named by ``args``: a key prefix, or dataset + configuration + repeat + fold."""
     jobs = inputs.plan.jobs
-    if args.key is not None:
-        found = [j for j in jobs if j.key.startswith(args.key.lower())]
+    if args.key is not None:  # an inner job of nested selection too
+        found = [j for j in inputs.plan.all_jobs if j.key.startswith(args.key.lower())]
         what = f"key {args.key!r}"
     elif args.dataset is None or args.config is None:
         raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "

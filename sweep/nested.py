@@ -284,9 +284,10 @@ def load_nested(spec_path: Any) -> tuple[Any, list[dict[str, Any]]]:
     return inputs, nested_summary(selected, outer, plan.blocks, [name for name, _ in plan.datasets], folds, metric)
 
 
-def add_tuned(res: Any) -> Any:
+def add_tuned(res: Any, *, only: bool = False) -> Any:
     """``res`` (:class:`sweep.report.SweepResults`) with one more configuration per model block, its
-    tuned row (:func:`tuned_rows`), planned like any configuration's cell, for table, compare and rank."""
+    tuned row (:func:`tuned_rows`), planned like any configuration's cell, for table, compare and rank;
+    ``only``: the tuned rows alone (e.g. to rank 'fuzzy (tuned)' against 'tree (tuned)')."""
     import pandas as pd
 
     from sweep.report import SweepResults
@@ -302,6 +303,8 @@ def add_tuned(res: Any) -> Any:
     rows = tuned_rows(selected, res.frame, res.params)
     planned = pd.DataFrame([(name, tuned_name(label), plan.jobs_per_cell) for name, _ in plan.datasets
                             for label, _ in plan.blocks], columns=["dataset", "config_id", "jobs"])
+    if only:
+        return SweepResults(frame=rows, params=res.params, planned=planned, spec_path=res.spec_path)
     frame = pd.concat([res.frame, rows], ignore_index=True) if len(rows) else res.frame
     return SweepResults(frame=frame, params=res.params, planned=pd.concat([res.planned, planned], ignore_index=True),
                         spec_path=res.spec_path)

@@ -86,9 +86,11 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
 
 
 def _tuned_option(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--tuned", action="store_true",
-                        help="add one row per model block, 'NAME (tuned)': per outer fold the configuration its "
-                             "inner folds selected (needs [selection] in the spec)")
+    tuned = parser.add_mutually_exclusive_group()
+    tuned.add_argument("--tuned", action="store_true",
+                       help="add one row per model block, 'NAME (tuned)': per outer fold the configuration its "
+                            "inner folds selected (needs [selection] in the spec)")
+    tuned.add_argument("--only-tuned", action="store_true", help="the tuned rows alone, one per model block")
 
 
 def _rank_options(parser: argparse.ArgumentParser) -> None:
@@ -105,10 +107,10 @@ def _load(args: argparse.Namespace):
 
     metric = getattr(args, "metric", None)
     res = load_sweep_results(args.spec, metrics=[metric] if metric else None)
-    if getattr(args, "tuned", False):
+    if getattr(args, "tuned", False) or getattr(args, "only_tuned", False):
         from sweep.nested import add_tuned
 
-        res = add_tuned(res)
+        res = add_tuned(res, only=args.only_tuned)
     return res
 
 

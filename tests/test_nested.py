@@ -213,6 +213,8 @@ def test_tuned_rows_take_part_in_table_and_compare(knn_sweep: Path) -> None:
                                            "--json")).stdout)
     assert (compared["config_a"], compared["config_b"], compared["n"]) == ("knn (tuned)", "knn7 (tuned)", 2)
     assert compared["wins"] + compared["ties"] + compared["losses"] == 2
+    ranked = json.loads(ok(run_foldsweep("rank", knn_sweep, "--only-tuned", "--json")).stdout)
+    assert sorted(r["config_id"] for r in ranked["average_ranks"]) == ["knn (tuned)", "knn7 (tuned)"]
 
 
 # ---- inner jobs are ordinary jobs: resume, grow ---------------------------------------------
