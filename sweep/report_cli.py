@@ -9,6 +9,9 @@
     foldsweep rank SPEC [--metric M] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
     foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--metric M] [--control CONFIG] [--json]
 
+``table``, ``compare`` and ``rank`` take ``--tuned`` (one more configuration per model block, ``NAME
+(tuned)``: per outer fold the configuration its inner folds selected; sweep.nested) or ``--only-tuned``.
+
 A CONFIG is a configuration id (or a unique prefix of one) or a parameter
 filter such as ``reasoning=choquet,measure=power``. Every handler returns an
 exit code and raises :class:`~sweep.errors.FoldsweepError` subclasses for
