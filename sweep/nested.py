@@ -41,7 +41,7 @@ as ``GridSearchCV`` computes them, with no rounding.
 
 from __future__ import annotations
 
-from typing import Any, Iterable, Mapping, Sequence
+from typing import Any, Mapping, Sequence
 
 import numpy as np
 
@@ -88,20 +88,22 @@ def check_inner_feasible(y: np.ndarray, classes: Sequence[str], k: int, inner_k:
                            f"selection.inner_k = {inner_k}; lower selection.inner_k or drop the class")
 
 
-def compute_inner_folds(y: np.ndarray, outer: Iterable[Any], inner_k: int, seed: int) -> list[Any]:
-    """The inner folds of every outer fold (:class:`sweep.folds.Fold` objects: repeat, inner fold number,
-    validation rows as dataset row indices, classes absent from the inner training part)."""
+def compute_inner_folds(y: np.ndarray, outer: Mapping[tuple[int, int], np.ndarray], inner_k: int,
+                        seed: int) -> list[Any]:
+    """The inner folds of every outer fold, given as (repeat, fold) -> test rows (as the store holds them):
+    :class:`sweep.folds.Fold` objects (repeat, inner fold number, validation rows as dataset row
+    indices, classes absent from the inner training part)."""
     from sweep.folds import Fold, stratified_kfold
 
     y = np.asarray(y)
     classes = np.unique(y)
     folds = []
-    for o in outer:
-        train = np.setdiff1d(np.arange(len(y)), o.test_index)  # ascending
+    for (repeat, fold), test in sorted(outer.items()):
+        train = np.setdiff1d(np.arange(len(y)), test)  # ascending
         for i, part in enumerate(stratified_kfold(y[train], inner_k, seed)):
             rest = np.delete(train, part)
             missing = tuple(int(c) for c in np.setdiff1d(classes, np.unique(y[rest])))
-            folds.append(Fold(o.repeat, inner_number(o.fold, i, inner_k), train[part].astype(np.int32), missing))
+            folds.append(Fold(repeat, inner_number(fold, i, inner_k), train[part].astype(np.int32), missing))
     return folds
 
 

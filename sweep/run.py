@@ -137,8 +137,8 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
             from sweep.nested import compute_inner_folds, inner_scheme
 
             inner = inner_scheme(plan.scheme, plan.inner_k)
-            if not store.has_folds(inner, data.fingerprint):
-                outer = compute_folds(data.y, spec.folds)
+            if not store.has_folds(inner, data.fingerprint):  # derived from the outer folds as stored
+                outer = store.load_folds(plan.scheme, data.fingerprint)
                 store.record_folds(inner, data.fingerprint,
                                    compute_inner_folds(data.y, outer, plan.inner_k, spec.folds.seed))
         for repeat, fold, missing in store.fold_warnings(plan.scheme, data.fingerprint):

@@ -74,7 +74,8 @@ def test_inner_folds_are_stratified_kfold_of_each_outer_training_part() -> None:
     y = load_wine().target
     scheme = FoldScheme(k=4, repeats=2, seed=SEED)
     outer = compute_folds(y, scheme)
-    inner = {(f.repeat, f.fold): f.test_index for f in compute_inner_folds(y, outer, 3, SEED)}
+    stored = {(f.repeat, f.fold): f.test_index for f in outer}
+    inner = {(f.repeat, f.fold): f.test_index for f in compute_inner_folds(y, stored, 3, SEED)}
     assert len(inner) == 4 * 2 * 3
     for o in outer:
         T = np.setdiff1d(np.arange(len(y)), o.test_index)
