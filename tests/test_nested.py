@@ -20,8 +20,14 @@ import pytest
 
 from sweep.errors import SpecError
 from sweep.folds import compute_folds, stratified_kfold
-from sweep.nested import (compute_inner_folds, inner_number, job_rows, nested_summary, select_configurations,
-                          split_number)
+from sweep.nested import (
+    compute_inner_folds,
+    inner_number,
+    job_rows,
+    nested_summary,
+    select_configurations,
+    split_number,
+)
 from sweep.spec import FoldScheme, parse_spec
 from tests.conftest import run_foldsweep, start_foldsweep
 from tests.test_cli import ok, query, run_json, wait_for_done, write_spec
@@ -286,8 +292,8 @@ def test_growing_the_grid_adds_only_the_new_configurations_inner_and_outer_jobs(
     ({"inner_k": 1}, r"selection.inner_k must be an integer >= 2, got 1"),
     ({"inner_k": "3"}, r"selection.inner_k must be an integer >= 2"),
     ({"inner": 3}, r"unknown key 'selection.inner' \(did you mean 'inner_k'\?\)"),
-    ({"metric": "acuracy"}, r"selection.metric must be one of accuracy, balanced_accuracy, kappa, got 'acuracy' "
-                            r"\(did you mean 'accuracy'\?\)"),
+    ({"metric": "acuracy"}, (r"selection.metric must be one of accuracy, balanced_accuracy, kappa, got 'acuracy' "
+                             r"\(did you mean 'accuracy'\?\)")),
 ])
 def test_selection_section_errors_name_the_key(section: dict[str, Any], message: str) -> None:
     doc = {"dataset": [{"name": "iris", "builtin": "iris"}], "model": [{"worker": "knn"}], "selection": section}
