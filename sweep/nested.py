@@ -48,7 +48,7 @@ import numpy as np
 from sweep.errors import DatasetError
 
 __all__ = ["inner_scheme", "inner_number", "split_number", "check_inner_feasible", "compute_inner_folds",
-           "job_rows", "select_configurations", "nested_summary", "tuned_rows", "tuned_name",
+           "job_rows", "JobRows", "record_inner_folds", "inner_progress", "select_configurations", "nested_summary", "tuned_rows", "tuned_name",
            "selection_progress", "load_selection", "inner_counts"]
 
 
@@ -118,6 +118,43 @@ def job_rows(outer: Mapping[tuple[int, int], np.ndarray], inner: Mapping[tuple[i
     keep[outer[(repeat, outer_fold)]] = False
     keep[validation] = False
     return validation, np.flatnonzero(keep)
+
+
+class JobRows:
+    """(test rows, training rows or None for "every other row") of the claimed jobs of ``plan``, from the
+    folds ``store`` holds (read once per dataset): what the run loop puts in each :class:`workers.job.Job`."""
+
+    def __init__(self, store: Any, plan: Any, datasets: Mapping[str, Any]) -> None:
+        self.store, self.plan, self.datasets = store, plan, datasets
+        self.outer: dict[str, Mapping[tuple[int, int], np.ndarray]] = {}
+        self.inner: dict[str, Mapping[tuple[int, int], np.ndarray]] = {}
+
+    def __call__(self, claimed: Any) -> tuple[np.ndarray, np.ndarray | None]:
+        fp, plan = claimed.fingerprint, self.plan
+        if fp not in self.outer:
+            self.outer[fp] = self.store.load_folds(plan.scheme, fp)
+            if plan.inner_k:
+                self.inner[fp] = self.store.load_folds(inner_scheme(plan.scheme, plan.inner_k), fp)
+        is_inner = claimed.scheme not in ("", plan.scheme)
+        return job_rows(self.outer[fp], self.inner.get(fp, {}), len(self.datasets[claimed.dataset].y),
+                        plan.inner_k, is_inner, claimed.repeat, claimed.fold)
+
+
+def record_inner_folds(store: Any, plan: Any, data: Any, seed: int) -> None:
+    """Store the inner folds of ``data`` (derived from its outer folds as stored), unless already there."""
+    if plan.inner_k and not store.has_folds(inner_scheme(plan.scheme, plan.inner_k), data.fingerprint):
+        outer = store.load_folds(plan.scheme, data.fingerprint)
+        store.record_folds(inner_scheme(plan.scheme, plan.inner_k), data.fingerprint,
+                           compute_inner_folds(data.y, outer, plan.inner_k, seed))
+
+
+def inner_progress(store: Any, plan: Any, sweep: str) -> tuple[tuple[int, int] | None, set[str]]:
+    """For the progress line: (inner jobs, of them finished) or None without nested selection, and the
+    inner jobs' keys (to count finished ones apart)."""
+    if not plan.inner_k:
+        return None, set()
+    counts = store.counts(sweep, inner_scheme(plan.scheme, plan.inner_k))
+    return (sum(counts.values()), counts["done"] + counts["failed"]), {j.key for j in plan.inner_jobs}
 
 
 # ---- selection (pure) -------------------------------------------------------------------------

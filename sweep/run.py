@@ -38,6 +38,7 @@ from pathlib import Path
 from typing import Any, Mapping, TextIO
 
 from sweep.errors import DatasetError
+from sweep.nested import JobRows, inner_progress
 from sweep.plan import Plan, make_plan
 from sweep.spec import Spec, load_spec
 from sweep.store import Claimed, Store, owner_id
@@ -121,6 +122,7 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     import json
 
     from sweep.folds import compute_folds
+    from sweep.nested import record_inner_folds
 
     spec, plan = inputs.spec, inputs.plan
     _refuse_changed_data(store, inputs, accept_changed_data)
@@ -133,14 +135,7 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     for data in inputs.datasets.values():
         if not store.has_folds(plan.scheme, data.fingerprint):
             store.record_folds(plan.scheme, data.fingerprint, compute_folds(data.y, spec.folds))
-        if plan.inner_k:
-            from sweep.nested import compute_inner_folds, inner_scheme
-
-            inner = inner_scheme(plan.scheme, plan.inner_k)
-            if not store.has_folds(inner, data.fingerprint):  # derived from the outer folds as stored
-                outer = store.load_folds(plan.scheme, data.fingerprint)
-                store.record_folds(inner, data.fingerprint,
-                                   compute_inner_folds(data.y, outer, plan.inner_k, spec.folds.seed))
+        record_inner_folds(store, plan, data, spec.folds.seed)
         for repeat, fold, missing in store.fold_warnings(plan.scheme, data.fingerprint):
             names = ", ".join(repr(data.classes[c]) for c in missing)
             print(f"warning: dataset {data.name!r} repeat {repeat} fold {fold}: the training part lacks "
@@ -238,9 +233,7 @@ class _Loop:
         self.job_seconds: float | None = None
         self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows
         self.configs = inputs.plan.by_config
-        self.folds: dict[str, dict[tuple[int, int], Any]] = {}
-        self.inner_folds: dict[str, dict[tuple[int, int], Any]] = {}
-        self.inner_keys: set[str] = set()
+        self.rows = JobRows(store, inputs.plan, inputs.datasets)
         self.handles: dict[str, Any] = {}
         self.inflight: dict[Any, list[Claimed]] = {}
         self.isolated: list[Claimed] = []
@@ -253,13 +246,7 @@ class _Loop:
     def run(self, counts: Mapping[str, int]) -> None:
         from sweep.progress import Progress
 
-        inner = None
-        if self.inputs.plan.inner_k:
-            from sweep.nested import inner_scheme
-
-            self.inner_keys = {j.key for j in self.inputs.plan.inner_jobs}
-            known = self.store.counts(self.spec.name, inner_scheme(self.inputs.plan.scheme, self.inputs.plan.inner_k))
-            inner = (sum(known.values()), known["done"] + known["failed"])
+        inner, self.inner_keys = inner_progress(self.store, self.inputs.plan, self.spec.name)
         self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
                                  mode=self.options.progress, stream=self.out, inner=inner)
         self.unclaimed = counts["pending"]
@@ -378,33 +365,16 @@ class _Loop:
         from workers.job import Job
 
         fp = batch[0].fingerprint
-        plan = self.inputs.plan
-        if fp not in self.folds:
-            self.folds[fp] = self.store.load_folds(plan.scheme, fp)
-            if plan.inner_k:
-                from sweep.nested import inner_scheme
-
-                self.inner_folds[fp] = self.store.load_folds(inner_scheme(plan.scheme, plan.inner_k), fp)
+        if fp not in self.handles:
             self.handles[fp] = self.executor.share(self.inputs.datasets[batch[0].dataset])
         jobs = []
         for c in batch:
             config = self.configs[c.config_id]
-            test, train = self._rows(c)
+            test, train = self.rows(c)
             jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
                             fingerprint=fp, repeat=c.repeat, fold=c.fold,
                             test_index=test, time_limit=self.spec.time_limit, train_index=train))
         self.inflight[self.executor.submit(jobs, self.handles[fp])] = batch
-
-    def _rows(self, c: Claimed) -> tuple[Any, Any]:
-        """(test rows, training rows or None) of a claimed job (sweep.nested for an inner job's)."""
-        plan = self.inputs.plan
-        if not plan.inner_k or c.scheme in ("", plan.scheme):
-            return self.folds[c.fingerprint][(c.repeat, c.fold)], None
-        from sweep.nested import job_rows
-
-        n_rows = len(self.inputs.datasets[c.dataset].y)
-        return job_rows(self.folds[c.fingerprint], self.inner_folds[c.fingerprint], n_rows, plan.inner_k, True,
-                        c.repeat, c.fold)
 
     def _collect(self, future: Any) -> None:
         batch = self.inflight.pop(future)
