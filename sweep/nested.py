@@ -239,8 +239,9 @@ def tuned_rows(selected: Any, outer: Any, params: Sequence[str] = ()) -> Any:
     rows = outer.merge(picked, on=["dataset", "config_id", "repeat", "fold"], how="inner")
     names = rows.pop("model").map(tuned_name).to_numpy(dtype=object)
     rows["config_id"] = names
-    if "label" in rows.columns:
-        rows["label"] = names
+    for column in ("label", "name"):  # the block's label; a readable name column where the reports have one
+        if column in rows.columns:
+            rows[column] = names
     for name in params:
         rows[name] = None
     return rows[list(outer.columns)].reset_index(drop=True)
@@ -327,9 +328,10 @@ def add_tuned(res: Any, *, only: bool = False) -> Any:
     """``res`` (:class:`sweep.report.SweepResults`) with one more configuration per model block, its
     tuned row (:func:`tuned_rows`), planned like any configuration's cell, for table, compare and rank;
     ``only``: the tuned rows alone (e.g. to rank 'fuzzy (tuned)' against 'tree (tuned)')."""
+    from dataclasses import replace
+
     import pandas as pd
 
-    from sweep.report import SweepResults
     from sweep.run import open_store
 
     inputs = _selection_inputs(res.spec_path)
@@ -343,7 +345,6 @@ def add_tuned(res: Any, *, only: bool = False) -> Any:
     planned = pd.DataFrame([(name, tuned_name(label), plan.jobs_per_cell) for name, _ in plan.datasets
                             for label, _ in plan.blocks], columns=["dataset", "config_id", "jobs"])
     if only:
-        return SweepResults(frame=rows, params=res.params, planned=planned, spec_path=res.spec_path)
+        return replace(res, frame=rows, planned=planned)
     frame = pd.concat([res.frame, rows], ignore_index=True) if len(rows) else res.frame
-    return SweepResults(frame=frame, params=res.params, planned=pd.concat([res.planned, planned], ignore_index=True),
-                        spec_path=res.spec_path)
+    return replace(res, frame=frame, planned=pd.concat([res.planned, planned], ignore_index=True))
