@@ -323,3 +323,14 @@ worker = "knn"
     assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
     assert "'x' has 3 rows, fewer than selection.inner_k = 4" in proc.stderr
     assert not path.with_suffix(".sqlite").exists()
+
+
+def test_progress_counts_inner_jobs_apart() -> None:
+    import io
+
+    from sweep.progress import Progress
+
+    progress = Progress(40, 10, 0, mode="none", stream=io.StringIO(), inner=(30, 4))
+    progress.update(done=5, failed=1, inner=3)
+    assert "16/40 jobs (40.0%) (inner 7/30), 1 failed" in progress.summary()
+    assert "inner" not in Progress(10, 0, 0, mode="none", stream=io.StringIO()).summary()
