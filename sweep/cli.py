@@ -4,21 +4,27 @@
 
     foldsweep run SPEC [--workers N] [--backend joblib|dask] [--scheduler ADDR] [--retry-failed] [--claim N]
     foldsweep status SPEC [--json]
+    foldsweep configs SPEC [--json]
+    foldsweep failures SPEC [--json] [--traceback KEY]
     foldsweep results SPEC [--format csv|parquet|json] [--out FILE]
-    foldsweep best | table | compare | rank | plot SPEC ...      (see sweep.report_cli)
+    foldsweep best | table | compare | rank | plot | report SPEC ...      (see sweep.report_cli)
 
-Bad input of any kind ends with one line on standard error and exit code 2.
+Exit codes: 0 done; 1 ``run`` finished but jobs of the sweep are failed
+(see ``foldsweep failures``); 2 bad input of any kind (one line on standard
+error); 130 interrupted.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import re
 import sys
 from typing import Any, Sequence
 
 from sweep.errors import FoldsweepError, NoStoreYet, SelectionError
 
+EXIT_JOBS_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
 
@@ -46,6 +52,19 @@ def build_parser() -> argparse.ArgumentParser:
     status.add_argument("--json", action="store_true")
     status.set_defaults(func=cmd_status)
 
+    configs = sub.add_parser("configs", help="one line per configuration: id, name, model, parameters, folds "
+                             "done/failed/pending")
+    configs.add_argument("spec")
+    configs.add_argument("--json", action="store_true")
+    configs.set_defaults(func=cmd_configs)
+
+    failures = sub.add_parser("failures", help="one line per failed job, grouped by error message")
+    failures.add_argument("spec")
+    failures.add_argument("--json", action="store_true")
+    failures.add_argument("--traceback", default=None, metavar="KEY",
+                          help="print the stored traceback of one job (its key or a unique prefix)")
+    failures.set_defaults(func=cmd_failures)
+
     results = sub.add_parser("results", help="one row per finished job")
     results.add_argument("spec")
     results.add_argument("--format", choices=("csv", "parquet", "json"), default="csv")
@@ -60,7 +79,7 @@ def build_parser() -> argparse.ArgumentParser:
     model.add_argument("spec")
     model.add_argument("key", nargs="?", default=None, help="the job's key, or a unique prefix of it")
     model.add_argument("--dataset", default=None)
-    model.add_argument("--config", default=None, help="configuration id (or a unique prefix)")
+    model.add_argument("--config", default=None, help="configuration name, id or a unique id prefix")
     model.add_argument("--repeat", type=int, default=0)
     model.add_argument("--fold", type=int, default=0)
     model.add_argument("--json", action="store_true")
@@ -101,7 +120,9 @@ def cmd_run(args: argparse.Namespace) -> int:
         print(json.dumps(summary.__dict__))
     else:
         print(_describe_run(summary))
-    return EXIT_INTERRUPTED if summary.interrupted else 0
+    if summary.interrupted:
+        return EXIT_INTERRUPTED
+    return EXIT_JOBS_FAILED if summary.failed else 0
 
 
 def _describe_run(s: Any) -> str:
@@ -172,13 +193,92 @@ def _last_line(error: str | None) -> str:
     return lines[-1] if lines else "unknown error"
 
 
+def cmd_configs(args: argparse.Namespace) -> int:
+    from sweep.results import open_tracker
+
+    view, store = open_tracker(args.spec, store_needed=False)  # before a first run: everything pending
+    try:
+        counts = store.cell_counts(view.spec.name) if store is not None else []
+    finally:
+        if store is not None:
+            store.close()
+    done: dict[str, int] = {}
+    failed: dict[str, int] = {}
+    for _, cid, state, n in counts:
+        if state in ("done", "failed"):
+            (done if state == "done" else failed)[cid] = (done if state == "done" else failed).get(cid, 0) + n
+    per_config = len(view.plan.datasets) * view.plan.jobs_per_cell
+    given = {b.label: {*b.fixed, *b.grid} for b in view.spec.models}
+    rows = []
+    for c in view.plan.configurations:
+        n = view.names[c.config_id]
+        d, f = done.get(c.config_id, 0), failed.get(c.config_id, 0)
+        rows.append({"id": c.config_id, "name": n.name, "model": n.model, "params": dict(n.params),
+                     "done": d, "failed": f, "pending": per_config - d - f, "_given": given.get(n.model, set())})
+    if args.json:
+        print(json.dumps([{k: v for k, v in r.items() if k != "_given"} for r in rows], ensure_ascii=False))
+        return 0
+    width = max(len(r["name"]) for r in rows)
+    for r in rows:
+        params = ", ".join(f"{k}={v}" for k, v in r["params"].items() if k in r["_given"]) or "defaults"
+        print(f"{r['id']}  {r['name']:<{width}}  {r['model']}: {params}  "
+              f"(folds: {r['done']} done, {r['failed']} failed, {r['pending']} pending of {per_config})")
+    return 0
+
+
+def cmd_failures(args: argparse.Namespace) -> int:
+    from sweep.results import open_tracker
+
+    view, store = open_tracker(args.spec)
+    try:
+        failed = store.failed_jobs(view.spec.name)
+    finally:
+        store.close()
+    if args.traceback is not None:
+        found = [f for f in failed if f["key"].startswith(args.traceback.lower())]
+        if len(found) != 1:
+            what = "no failed job has" if not found else f"{len(found)} failed jobs have"
+            raise SelectionError(f"{args.spec}: {what} a key starting with {args.traceback!r} "
+                                 "(keys: foldsweep failures SPEC --json)")
+        job = found[0]
+        print(clean_text(job["error"] or ("timed out" if job["timed_out"] else "no traceback stored")).rstrip())
+        return 0
+    rows = [{"key": f["key"], "dataset": f["dataset"], "config": view.names[f["config_id"]].name
+             if f["config_id"] in view.names else f["config_id"], "config_id": f["config_id"],
+             "repeat": f["repeat"], "fold": f["fold"], "attempts": f["attempts"],
+             "error": "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))} for f in failed]
+    if args.json:
+        print(json.dumps(rows, ensure_ascii=False))
+        return 0
+    if not rows:
+        print(f"sweep {view.spec.name!r}: no failed jobs")
+        return 0
+    groups: dict[str, list[dict[str, Any]]] = {}
+    for r in rows:
+        groups.setdefault(r["error"], []).append(r)
+    print(f"sweep {view.spec.name!r}: {len(rows)} failed jobs, {len(groups)} distinct errors")
+    for message, members in sorted(groups.items(), key=lambda kv: -len(kv[1])):
+        print(f"{len(members)} x {message}")
+        for r in members:
+            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}  "
+                  f"attempts {r['attempts']}  key {r['key']}")
+    return 0
+
+
+def clean_text(text: str) -> str:
+    """``text`` without terminal control: escape sequences and control characters other than newline and tab
+    (a stored error message may hold a library's colour codes, or anything a worker printed)."""
+    return _CONTROL.sub("", text.replace("\r\n", "\n"))
+
+
+_CONTROL = re.compile(r"\x1b\[[0-?]*[ -/]*[@-~]|\x1b\][^\x07\x1b]*(\x07|\x1b\\)?|\x1b.|[\x00-\x08\x0b-\x1f\x7f-\x9f]")
+
+
 def cmd_results(args: argparse.Namespace) -> int:
-    from sweep.results import results_frame
-    from sweep.run import load_inputs, open_store
+    from sweep.results import open_tracker, results_frame
     from sweep.writing import write_frame
 
-    inputs = load_inputs(args.spec)
-    store = open_store(inputs.spec, create=False)
+    inputs, store = open_tracker(args.spec)
     try:
         frame, _ = results_frame(inputs, store)
     finally:
@@ -198,14 +298,17 @@ def cmd_model(args: argparse.Namespace) -> int:
         stored = store.stored_model(job.key)
     finally:
         store.close()
-    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {job.config_id} {config.label!r}, "
+    from sweep.naming import name_configurations
+
+    name = name_configurations(inputs.spec, inputs.plan)[job.config_id].name
+    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {name!r} [{job.config_id}], "
              f"repeat {job.repeat}, fold {job.fold})")
     if stored is None:
         raise SelectionError(f"{args.spec}: {where} has no result yet (see `foldsweep status`)")
     if stored["model_text"] is None:
         raise SelectionError(f"{args.spec}: {where}: worker {config.worker!r} stores no model text")
     if args.json:
-        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id,
+        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id, "name": name,
                           "label": config.label, "repeat": job.repeat, "fold": job.fold, **stored}))
         return 0
     print(f"{where}: test accuracy {stored['accuracy']:.4f}, training accuracy {stored['train_accuracy']:.4f}")
@@ -223,7 +326,11 @@ def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
         raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "
                              "(with --repeat and --fold, default 0)")
     else:
-        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(args.config)
+        from sweep.naming import name_configurations
+
+        named = [cid for cid, n in name_configurations(inputs.spec, inputs.plan).items() if n.name == args.config]
+        config = named[0] if named else args.config  # a configuration's name, its id or an id prefix
+        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(config)
                  and j.repeat == args.repeat and j.fold == args.fold]
         what = (f"dataset {args.dataset!r}, configuration {args.config!r}, repeat {args.repeat}, "
                 f"fold {args.fold}")

@@ -196,7 +196,8 @@ def select_configurations(inner: Any, blocks: Sequence[tuple[str, Sequence[str]]
 
 
 def nested_summary(selected: Any, outer: Any, blocks: Sequence[tuple[str, Sequence[str]]],
-                   datasets: Sequence[str], folds: Sequence[tuple[int, int]], metric: str) -> list[dict[str, Any]]:
+                   datasets: Sequence[str], folds: Sequence[tuple[int, int]], metric: str,
+                   names: Mapping[str, str] | None = None) -> list[dict[str, Any]]:
     """Per dataset and model block: the nested estimate beside the naive best.
 
     ``selected``: :func:`select_configurations`' frame; ``outer``: the outer results (columns dataset,
@@ -204,8 +205,10 @@ def nested_summary(selected: Any, outer: Any, blocks: Sequence[tuple[str, Sequen
     ``nested_accuracy`` is the mean over the outer folds of the selected configurations' outer scores
     (None until every outer fold has a selection and its outer score); ``naive_accuracy`` the highest
     mean outer score of a configuration of the block over every outer fold (None until one has them
-    all); ``optimism`` = naive − nested. Scores are in ``metric``, the selection's metric.
+    all); ``optimism`` = naive − nested. Scores are in ``metric``, the selection's metric. A configuration
+    is shown by its readable name (``names``, sweep.naming; its id without one), beside its id.
     """
+    names = names or {}
     score = {(r.dataset, r.config_id, r.repeat, r.fold): float(getattr(r, metric))
              for r in outer[["dataset", "config_id", "repeat", "fold", metric]].itertuples(index=False)}
     chosen = {(r.dataset, r.model, r.repeat, r.fold): (r.config_id, float(r.inner_score))
@@ -217,8 +220,8 @@ def nested_summary(selected: Any, outer: Any, blocks: Sequence[tuple[str, Sequen
             for repeat, fold in folds:
                 if (dataset, label, repeat, fold) in chosen:
                     config, inner_score = chosen[(dataset, label, repeat, fold)]
-                    choices.append(dict(repeat=repeat, fold=fold, config=config, inner_score=inner_score,
-                                        outer_score=score.get((dataset, config, repeat, fold))))
+                    choices.append(dict(repeat=repeat, fold=fold, config=names.get(config, config), config_id=config,
+                                        inner_score=inner_score, outer_score=score.get((dataset, config, repeat, fold))))
             outer_scores = [c["outer_score"] for c in choices if c["outer_score"] is not None]
             nested = float(np.mean(outer_scores)) if len(outer_scores) == len(folds) else None
             means = {c: float(np.mean([score[(dataset, c, r, f)] for r, f in folds])) for c in ids
@@ -227,7 +230,8 @@ def nested_summary(selected: Any, outer: Any, blocks: Sequence[tuple[str, Sequen
             naive = means[naive_config] if naive_config is not None else None
             out.append(dict(dataset=dataset, model=label, metric=metric, nested_accuracy=nested,
                             naive_accuracy=naive, optimism=None if nested is None or naive is None else naive - nested,
-                            naive_config=naive_config, folds=len(folds), folds_selected=len(choices), choices=choices))
+                            naive_config=names.get(naive_config, naive_config), naive_config_id=naive_config,
+                            folds=len(folds), folds_selected=len(choices), choices=choices))
     return out
 
 
@@ -295,33 +299,36 @@ def load_selection(inputs: Any, store: Any, metric: str) -> Any:
     return select_configurations(inner, plan.blocks, plan.inner_k)
 
 
-def _selection_inputs(spec_path: Any) -> Any:
+def _open_selection(spec_path: Any) -> tuple[Any, Any]:
+    """(tracker view, open store) of a spec with a [selection] section (sweep.results.open_tracker: no
+    dataset file is read); the caller closes the store."""
     from sweep.errors import SelectionError
-    from sweep.run import load_inputs
+    from sweep.results import open_tracker
 
-    inputs = load_inputs(spec_path)
-    if inputs.spec.selection is None:
+    view, store = open_tracker(spec_path)
+    if view.spec.selection is None:
+        store.close()
         raise SelectionError(f"{spec_path}: the spec has no [selection] section, so no inner jobs were planned; "
                              "add one (e.g. [selection] inner_k = 3) and run the sweep again")
-    return inputs
+    return view, store
 
 
 def load_nested(spec_path: Any) -> tuple[Any, list[dict[str, Any]]]:
-    """(inputs, :func:`nested_summary`) of the sweep at ``spec_path``, from its tracker: what
+    """(tracker view, :func:`nested_summary` with readable names) of the sweep at ``spec_path``: what
     ``foldsweep best SPEC --nested`` prints."""
     from sweep.results import results_frame
-    from sweep.run import open_store
 
-    inputs = _selection_inputs(spec_path)
-    plan, metric = inputs.plan, inputs.spec.selection.metric
-    store = open_store(inputs.spec, create=False)
+    view, store = _open_selection(spec_path)
+    plan, metric = view.plan, view.spec.selection.metric
     try:
-        selected = load_selection(inputs, store, metric)
-        outer, _ = results_frame(inputs, store, figures=False, keys=False, hosts=False, metrics=[metric])
+        selected = load_selection(view, store, metric)
+        outer, _ = results_frame(view, store, figures=False, keys=False, hosts=False, metrics=[metric])
     finally:
         store.close()
     folds = [(r, f) for r in range(plan.repeats) for f in range(plan.k)]
-    return inputs, nested_summary(selected, outer, plan.blocks, [name for name, _ in plan.datasets], folds, metric)
+    names = {cid: n.name for cid, n in view.names.items()}
+    return view, nested_summary(selected, outer, plan.blocks, [name for name, _ in plan.datasets], folds, metric,
+                                names=names)
 
 
 def add_tuned(res: Any, *, only: bool = False) -> Any:
@@ -332,13 +339,10 @@ def add_tuned(res: Any, *, only: bool = False) -> Any:
 
     import pandas as pd
 
-    from sweep.run import open_store
-
-    inputs = _selection_inputs(res.spec_path)
-    plan = inputs.plan
-    store = open_store(inputs.spec, create=False)
+    view, store = _open_selection(res.spec_path)
+    plan = view.plan
     try:
-        selected = load_selection(inputs, store, inputs.spec.selection.metric)
+        selected = load_selection(view, store, view.spec.selection.metric)
     finally:
         store.close()
     rows = tuned_rows(selected, res.frame, res.params)

@@ -1,19 +1,23 @@
-"""The report subcommands of ``foldsweep``: best, table, compare, rank, plot.
+"""The report subcommands of ``foldsweep``: best, table, compare, rank, plot, report.
 
 ::
 
     foldsweep best SPEC [--metric M] [--where FILTER] [--json] [--out FILE]
+    foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--legend]
+                         [--caption TEXT] [--label KEY] [--where FILTER] [--out FILE] [--json]
+    foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--partial] [--alpha A] [--rope R]
+                         [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
+    foldsweep rank SPEC [--metric M] [--partial] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
+    foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--relative difference|rank|none] [--metric M] [--json]
+    foldsweep report SPEC --out study.html [--metric M] [--alpha A] [--rope R] [--partial]
     foldsweep best SPEC --nested [--json] [--out FILE]   (nested selection: sweep.nested)
-    foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--where FILTER] [--out FILE] [--json]
-    foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
-    foldsweep rank SPEC [--metric M] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
-    foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--metric M] [--control CONFIG] [--json]
 
 ``table``, ``compare`` and ``rank`` take ``--tuned`` (one more configuration per model block, ``NAME
 (tuned)``: per outer fold the configuration its inner folds selected; sweep.nested) or ``--only-tuned``.
 
-A CONFIG is a configuration id (or a unique prefix of one) or a parameter
-filter such as ``reasoning=choquet,measure=power``. Every handler returns an
+A CONFIG is a configuration's name (as ``foldsweep configs`` lists it), its id
+(or a unique prefix of one) or a parameter filter such as
+``reasoning=choquet,measure=power``. Every handler returns an
 exit code and raises :class:`~sweep.errors.FoldsweepError` subclasses for
 bad input; ``sweep.cli.main`` prints those on one line (exit code 2).
 """
@@ -25,7 +29,7 @@ import json
 import sys
 from typing import Any
 
-__all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot"]
+__all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot", "cmd_report"]
 
 
 def add_commands(subparsers: Any) -> None:
@@ -42,6 +46,10 @@ def add_commands(subparsers: Any) -> None:
     table.add_argument("--pivot", default=None, metavar="PARAM",
                        help="columns are this parameter's values (fix the others with --where)")
     table.add_argument("--decimals", type=int, default=3)
+    table.add_argument("--legend", action="store_true",
+                       help="columns headed C1, C2, ... with a legend of names and parameters (wide tables)")
+    table.add_argument("--caption", default=None, help="LaTeX caption (default: the metric and what bold means)")
+    table.add_argument("--label", default=None, help="LaTeX \\label key (default tab:METRIC)")
     _tuned_option(table)
     table.set_defaults(func=cmd_table)
 
@@ -52,6 +60,10 @@ def add_commands(subparsers: Any) -> None:
     compare.add_argument("--zero-method", choices=("demsar", "wilcox", "pratt"), default="demsar",
                          help="zero differences: split between R+ and R- (Demšar), dropped (wilcox) or ranked then dropped (pratt)")
     compare.add_argument("--method", choices=("auto", "exact", "approx"), default="auto", help="Wilcoxon p-value")
+    compare.add_argument("--alpha", type=float, default=0.05, help="level the warnings about N refer to")
+    compare.add_argument("--partial", action="store_true",
+                         help="use the folds both have on datasets with incomplete cells (default: complete cells only)")
+    _bayes_options(compare)
     _tuned_option(compare)
     compare.set_defaults(func=cmd_compare)
 
@@ -66,8 +78,26 @@ def add_commands(subparsers: Any) -> None:
     plot.add_argument("--out", required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
     plot.add_argument("--pivot", default=None, metavar="PARAM", help="heatmap columns are this parameter's values")
     plot.add_argument("--limit", type=int, default=20, help="configurations drawn in the rank plot (best first)")
+    plot.add_argument("--relative", choices=("difference", "rank", "none"), default="difference",
+                      help="heatmap colour: distance to each dataset's best (default), rank within it, or raw")
     _rank_options(plot)
     plot.set_defaults(func=cmd_plot)
+
+    study = _command(subparsers, "report", "one self-contained HTML study report: completeness, failures, table, "
+                     "winners, tests, plots, legend, reproducibility", out=False)
+    study.add_argument("--out", required=True, metavar="FILE", help="HTML file to write")
+    study.add_argument("--alpha", type=float, default=0.05)
+    study.add_argument("--partial", action="store_true",
+                       help="paired tests over the folds the configurations share (default: complete cells only)")
+    study.add_argument("--limit", type=int, default=10,
+                       help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
+    _bayes_options(study)
+    study.set_defaults(func=cmd_report)
+
+
+def _bayes_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--rope", type=float, default=0.01,
+                        help="region of practical equivalence of the Bayesian tests, in the metric's units (default 0.01)")
 
 
 def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: bool = True) -> argparse.ArgumentParser:
@@ -101,6 +131,8 @@ def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
                         default="auto", help="adjustment: holm against a control, shaffer over all pairs (auto)")
     parser.add_argument("--alpha", type=float, default=0.05)
+    parser.add_argument("--partial", action="store_true",
+                        help="rank over the folds every configuration has (default: datasets with every cell complete)")
     parser.add_argument("--tie-correction", action="store_true",
                         help="divide chi2_F by the tie correction, as scipy.stats.friedmanchisquare (default: Demšar's formula)")
 
@@ -154,10 +186,16 @@ def _best_text(frame) -> str:
         sd = "?" if r.sd != r.sd else f"{r.sd:.4f}"
         planned = "?" if r.planned != r.planned else f"{int(r.planned)}"
         state = "" if r.complete else "  [incomplete]"
-        params = ", ".join(f"{k}={v}" for k, v in (r.params or {}).items())
-        margin = "no runner-up" if r.margin != r.margin else f"margin {r.margin:.4f} over {r.runner_up}"
-        lines.append(f"{r.dataset}: {r.config_id} ({r.worker}; {params}) {r.metric} {r.mean:.4f} ± {sd}, "
-                     f"{r.folds}/{planned} folds, {margin}{state}")
+        if r.margin != r.margin:
+            margin = "no runner-up"
+        else:
+            test = ("" if r.test_p != r.test_p else
+                    f"; corrected resampled t over {r.test_folds} shared folds: p = {r.test_p:.3g}")
+            margin = f"margin {r.margin:.4f} over {r.runner_up_name}{test}"
+        lines.append(f"{r.dataset}: {r.name} {r.metric} {r.mean:.4f} ± {sd}, {r.folds}/{planned} folds, "
+                     f"{margin}{state}")
+    if any(not c for c, n in zip(frame["complete"], frame["folds"]) if n):
+        lines.append("[incomplete]: the winner has fewer finished folds than planned (the sweep is running or jobs failed)")
     return "\n".join(lines) + "\n"
 
 
@@ -165,37 +203,27 @@ def _best_nested(args: argparse.Namespace) -> int:
     from sweep.errors import SelectionError
     from sweep.nested import load_nested
 
-    inputs, summary = load_nested(args.spec)
-    metric = inputs.spec.selection.metric
+    view, summary = load_nested(args.spec)
+    metric = view.spec.selection.metric
     if args.metric not in (metric, "accuracy") or args.where:
         raise SelectionError(f"{args.spec}: best --nested scores in the spec's selection.metric ({metric!r}) over "
                              "every configuration of each block; leave out --metric and --where")
-    _emit(args, _dumps(summary) if args.json else _nested_text(inputs, summary))
+    _emit(args, _dumps(summary) if args.json else _nested_text(summary))
     return 0
 
 
-def _nested_text(inputs: Any, summary: list[dict[str, Any]]) -> str:
+def _nested_text(summary: list[dict[str, Any]]) -> str:
     def number(value: float | None) -> str:
         return "?" if value is None else f"{value:.4f}"
-
-    grids = {block.label: list(block.grid) for block in inputs.spec.models}
-    configs = inputs.plan.by_config
-
-    def name(config_id: str | None, model: str) -> str:
-        if config_id is None:
-            return "?"
-        params = configs[config_id].params
-        shown = ", ".join(f"{k}={params[k]}" for k in grids.get(model, []))
-        return f"{config_id} ({shown})" if shown else config_id
 
     lines = []
     for s in summary:
         optimism = "" if s["optimism"] is None else f", optimism {s['optimism']:+.4f}"
         lines.append(f"{s['dataset']} · {s['model']}: nested {s['metric']} {number(s['nested_accuracy'])} "
                      f"({s['folds_selected']}/{s['folds']} outer folds selected), naive best "
-                     f"{number(s['naive_accuracy'])} [{name(s['naive_config'], s['model'])}]{optimism}")
+                     f"{number(s['naive_accuracy'])} [{s['naive_config'] or '?'}]{optimism}")
         for c in s["choices"]:
-            lines.append(f"  repeat {c['repeat']} fold {c['fold']}: {name(c['config'], s['model'])} "
+            lines.append(f"  repeat {c['repeat']} fold {c['fold']}: {c['config']}: "
                          f"inner {c['inner_score']:.4f}, outer {number(c['outer_score'])}")
     return "\n".join(lines) + "\n"
 
@@ -206,7 +234,8 @@ def cmd_table(args: argparse.Namespace) -> int:
     res = _load(args)
     fmt = "json" if args.json else args.format
     _emit(args, report.table(res, args.metric, fmt=fmt, sd=args.sd, pivot=args.pivot, where=args.where,
-                             decimals=args.decimals, higher=args.higher))
+                             decimals=args.decimals, higher=args.higher, caption=args.caption, label=args.label,
+                             legend=args.legend))
     return 0
 
 
@@ -215,7 +244,8 @@ def cmd_compare(args: argparse.Namespace) -> int:
 
     res = _load(args)
     comp = report.compare(res, args.config_a, args.config_b, args.metric, zero_method=args.zero_method,
-                          method=args.method, higher=args.higher)
+                          method=args.method, higher=args.higher, partial=args.partial, alpha=args.alpha,
+                          rope=args.rope)
     _emit(args, _dumps(comp.to_dict()) if args.json else comp.to_text())
     return 0
 
@@ -224,7 +254,8 @@ def _rank_report(args: argparse.Namespace, res):
     from sweep import report
 
     return report.rank(res, args.metric, where=args.where, control=args.control, posthoc=args.posthoc,
-                       alpha=args.alpha, tie_correction=args.tie_correction, higher=args.higher)
+                       alpha=args.alpha, tie_correction=args.tie_correction, higher=args.higher,
+                       partial=args.partial)
 
 
 def cmd_rank(args: argparse.Namespace) -> int:
@@ -240,9 +271,27 @@ def cmd_plot(args: argparse.Namespace) -> int:
     if args.kind == "ranks":
         report.plot_ranks(_rank_report(args, res), args.out, limit=args.limit)
     else:
-        report.plot_heatmap(res, args.out, args.metric, where=args.where, pivot=args.pivot)
+        report.plot_heatmap(res, args.out, args.metric, where=args.where, pivot=args.pivot, higher=args.higher,
+                            relative=args.relative)
     if args.json:
         sys.stdout.write(_dumps({"kind": args.kind, "out": str(args.out), "metric": args.metric}))
+    else:
+        sys.stdout.write(f"wrote {args.out}\n")
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from sweep.results import load_sweep_results
+    from sweep.study_report import build_report
+
+    res = load_sweep_results(args.spec, metrics=[args.metric], details=True)
+    html = build_report(res, args.metric, higher=args.higher, alpha=args.alpha, rope=args.rope,
+                        partial=args.partial, where=args.where, limit=args.limit)
+    from sweep.report import write_text_atomic
+
+    write_text_atomic(args.out, html)
+    if args.json:
+        sys.stdout.write(_dumps({"out": str(args.out), "metric": args.metric, "bytes": len(html.encode())}))
     else:
         sys.stdout.write(f"wrote {args.out}\n")
     return 0

@@ -28,6 +28,8 @@
     grid = { reasoning = ["additive", "choquet"], measure = ["power", "sugeno_lambda"] }
     exclude = [ { reasoning = "additive", measure = "sugeno_lambda" } ]  # combinations to skip
     applies = { measure = { reasoning = ["choquet"] } }  # measure varies only where reasoning is choquet
+    label = "FRM {reasoning} {measure}"   # optional: how reports name this block's configurations
+    names = [ { name = "WR", reasoning = "winning_rule" } ]  # optional: names of single configurations
 
 Everything is checked against the workers' parameter declarations before
 anything runs; nothing else in foldsweep parses a spec.
@@ -50,7 +52,7 @@ FOLD_KEYS = ("k", "repeats", "seed")
 SELECTION_KEYS = ("inner_k", "metric")
 #: what the inner folds of a nested selection may maximise (result columns where higher is better)
 SELECTION_METRICS = ("accuracy", "balanced_accuracy", "kappa")
-MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies")
+MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies", "label", "names")
 
 
 @dataclass(frozen=True)
@@ -85,6 +87,10 @@ class ModelBlock:
     grid: Mapping[str, tuple[Any, ...]]
     exclude: tuple[Mapping[str, tuple[Any, ...]], ...]
     applies: Mapping[str, Mapping[str, tuple[Any, ...]]]
+    #: the block's ``label`` template for readable configuration names (sweep.naming), None: derived
+    name_template: str | None = None
+    #: the block's ``names``: (name, rule) pairs, the first matching rule names a configuration
+    names: tuple[tuple[str, Mapping[str, tuple[Any, ...]]], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -288,7 +294,38 @@ def _model(block: Any, where: str) -> ModelBlock:
                       for i, r in enumerate(_list(block.get("exclude", []), where, "exclude"))),
         applies={k: _rule(declared, name, cond, where, f"applies.{k}", target=k)
                  for k, cond in _table(block.get("applies", {}), where, "applies").items()},
+        name_template=_name_template(block.get("label"), declared, where),
+        names=tuple(_named_rule(declared, name, entry, where, f"names[{i}]")
+                    for i, entry in enumerate(_list(block.get("names", []), where, "names"))),
     )
+
+
+def _name_template(value: Any, declared: Mapping[str, Any], where: str) -> str | None:
+    """A ``label`` template: text with {parameter} fields naming the worker's parameters."""
+    import string
+
+    if value is None:
+        return None
+    _typed(value, str, where, "label", "a string such as \"FRM {reasoning}\"")
+    try:
+        fields = [f for _, f, spec, conv in string.Formatter().parse(value) if f is not None]
+    except ValueError as exc:
+        raise SpecError(f"{where}: label {value!r} is not a valid template ({exc}); "
+                        "write parameters as {name}, braces as {{ }}") from None
+    for f in fields:
+        if f not in declared:
+            raise SpecError(f"{where}: label: {{{f}}} is not a parameter{nearest(f, declared)}; "
+                            f"parameters: {', '.join(sorted(declared))}")
+    return value
+
+
+def _named_rule(declared: Mapping[str, Any], worker: str, entry: Any, where: str,
+                at: str) -> tuple[str, Mapping[str, tuple[Any, ...]]]:
+    if not isinstance(entry, Mapping) or not isinstance(entry.get("name"), str) or not entry["name"].strip():
+        raise SpecError(f"{where}: {at} must be a table with a non-empty name and parameter = value pairs, "
+                        "e.g. { name = \"WR\", reasoning = \"winning_rule\" }")
+    rule = {k: v for k, v in entry.items() if k != "name"}
+    return entry["name"].strip(), (_rule(declared, worker, rule, where, at) if rule else {})
 
 
 def _table(value: Any, where: str, key: str) -> Mapping[str, Any]:

@@ -488,6 +488,41 @@ class Store:
             return [tuple(r) for r in conn.execute(sa.select(j.key, j.error, j.timed_out).where(
                 j.sweep == sweep, j.active, j.state == "failed"))]
 
+    # ---- reading for the reports (sweep.results): the tracker alone, no dataset file ---------
+
+    def sweep_datasets(self, sweep: str) -> dict[str, str]:
+        """Dataset name -> fingerprint of the active jobs of ``sweep``: the data its results were
+        computed on, as recorded when it was last planned (reports need no dataset file)."""
+        j = jobs_table.c
+        query = sa.select(j.dataset, j.fingerprint).distinct().where(j.sweep == sweep, j.active)
+        with self.engine.connect() as conn:
+            return dict(conn.execute(query).all())
+
+    def cell_counts(self, sweep: str, states: Sequence[str] = STATES) -> list[tuple[str, str, str, int]]:
+        """(dataset, config_id, state, jobs) over the active jobs of ``sweep`` in ``states`` (leaving out
+        "done" reads only the unfinished jobs, through the (sweep, state) index)."""
+        j = jobs_table.c
+        query = (sa.select(j.dataset, j.config_id, j.state, sa.func.count())
+                 .where(j.sweep == sweep, j.state.in_(list(states)), j.active)
+                 .group_by(j.dataset, j.config_id, j.state))
+        with self.engine.connect() as conn:
+            return [(d, c, s, int(n)) for d, c, s, n in conn.execute(query)]
+
+    def failed_jobs(self, sweep: str) -> list[dict[str, Any]]:
+        """The failed active jobs of ``sweep``: key, dataset, config_id, repeat, fold, attempts, error, timed_out."""
+        j = jobs_table.c
+        query = (sa.select(j.key, j.dataset, j.config_id, j.repeat, j.fold, j.attempts, j.error, j.timed_out)
+                 .where(j.sweep == sweep, j.active, j.state == "failed")
+                 .order_by(j.dataset, j.config_id, j.repeat, j.fold))
+        with self.engine.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(query)]
+
+    def dataset_records(self, fingerprints: Sequence[str]) -> list[dict[str, Any]]:
+        """The datasets table's rows (fingerprint, name, source, shape, class counts) for ``fingerprints``."""
+        query = sa.select(datasets_table).where(datasets_table.c.fingerprint.in_(list(fingerprints)))
+        with self.engine.connect() as conn:
+            return [dict(r._mapping) for r in conn.execute(query)]
+
     def stored_model(self, key: str) -> dict[str, Any] | None:
         """The result row of job ``key`` as far as a reader of its model wants it (None: no result)."""
         c = results_table.c

@@ -130,7 +130,7 @@ def test_nested_can_exceed_naive_it_is_not_clamped() -> None:
     chosen = select_configurations(inner, [("m", ["a", "b"])], 2)
     [row] = nested_summary(chosen, outer, [("m", ["a", "b"])], ["d"], [(0, 0), (0, 1)], "accuracy")
     assert row["nested_accuracy"] == 1.0 and row["naive_accuracy"] == 0.5 and row["optimism"] == -0.5
-    assert [c["config"] for c in row["choices"]] == ["a", "b"]
+    assert [c["config_id"] for c in row["choices"]] == ["a", "b"] == [c["config"] for c in row["choices"]]
 
 
 # ---- end to end, against scikit-learn -------------------------------------------------------
@@ -179,9 +179,11 @@ def test_selection_and_nested_accuracy_equal_gridsearchcv(knn_sweep: Path, datas
         assert choice["inner_score"] == pytest.approx(means.max(), abs=1e-12)
         if np.sum(means == means.max()) == 1:
             compared += 1
-            assert configs[choice["config"]].params["n_neighbors"] == \
+            assert configs[choice["config_id"]].params["n_neighbors"] == \
                 fitted.best_params_["kneighborsclassifier__n_neighbors"]
     assert compared >= 3  # most outer folds have a unique best; the comparison must not be vacuous
+    for choice in report["choices"]:  # shown by readable name (sweep.naming), the id beside it
+        assert choice["config"] == f"knn · n_neighbors={configs[choice['config_id']].params['n_neighbors']}"
     reference = cross_val_score(search, X, y, cv=cv)
     assert report["nested_accuracy"] == pytest.approx(reference.mean(), abs=1e-12)
     assert [c["outer_score"] for c in report["choices"]] == pytest.approx(list(reference), abs=1e-12)
@@ -196,7 +198,7 @@ def test_nested_is_not_above_naive_and_equals_it_for_one_configuration(knn_sweep
         single = report[(dataset, "knn7")]  # a one-configuration grid selects it everywhere
         assert single["nested_accuracy"] == pytest.approx(single["naive_accuracy"], abs=1e-15)
         assert single["optimism"] == pytest.approx(0.0, abs=1e-15)
-        assert {c["config"] for c in single["choices"]} == {single["naive_config"]}
+        assert {c["config"] for c in single["choices"]} == {single["naive_config"]} == {"knn7"}
 
 
 def test_status_counts_inner_jobs_and_selections(knn_sweep: Path) -> None:
