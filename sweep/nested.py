@@ -348,7 +348,14 @@ def add_tuned(res: Any, *, only: bool = False) -> Any:
     rows = tuned_rows(selected, res.frame, res.params)
     planned = pd.DataFrame([(name, tuned_name(label), plan.jobs_per_cell) for name, _ in plan.datasets
                             for label, _ in plan.blocks], columns=["dataset", "config_id", "jobs"])
+    # a tuned row's id is its name; its parameters change from fold to fold: its legend says how they are chosen
+    workers = {block.label: block.worker for block in view.spec.models}
+    how = {"selected": f"per outer fold, best mean {view.spec.selection.metric} on {plan.inner_k} inner folds"}
+    names = {tuned_name(label): tuned_name(label) for label, _ in plan.blocks}
+    legend = {tuned_name(label): {"model": label, "worker": workers[label], "params": how, "given": ["selected"]}
+              for label, _ in plan.blocks}
     if only:
-        return replace(res, frame=rows, planned=planned)
+        return replace(res, frame=rows, planned=planned, names=names, legend=legend if res.legend else {}, cache={})
     frame = pd.concat([res.frame, rows], ignore_index=True) if len(rows) else res.frame
-    return replace(res, frame=frame, planned=pd.concat([res.planned, planned], ignore_index=True))
+    return replace(res, frame=frame, planned=pd.concat([res.planned, planned], ignore_index=True),
+                   names={**res.names, **names}, legend={**res.legend, **legend} if res.legend else {}, cache={})

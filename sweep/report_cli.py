@@ -12,7 +12,7 @@
     foldsweep report SPEC --out study.html [--metric M] [--alpha A] [--rope R] [--partial]
     foldsweep best SPEC --nested [--json] [--out FILE]   (nested selection: sweep.nested)
 
-``table``, ``compare`` and ``rank`` take ``--tuned`` (one more configuration per model block, ``NAME
+``table``, ``compare``, ``rank`` and ``report`` take ``--tuned`` (one more configuration per model block, ``NAME
 (tuned)``: per outer fold the configuration its inner folds selected; sweep.nested) or ``--only-tuned``.
 
 A CONFIG is a configuration's name (as ``foldsweep configs`` lists it), its id
@@ -92,6 +92,7 @@ def add_commands(subparsers: Any) -> None:
     study.add_argument("--limit", type=int, default=10,
                        help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
     _bayes_options(study)
+    _tuned_option(study)
     study.set_defaults(func=cmd_report)
 
 
@@ -285,6 +286,10 @@ def cmd_report(args: argparse.Namespace) -> int:
     from sweep.study_report import build_report
 
     res = load_sweep_results(args.spec, metrics=[args.metric], details=True)
+    if args.tuned or args.only_tuned:
+        from sweep.nested import add_tuned
+
+        res = add_tuned(res, only=args.only_tuned)
     html = build_report(res, args.metric, higher=args.higher, alpha=args.alpha, rope=args.rope,
                         partial=args.partial, where=args.where, limit=args.limit)
     from sweep.report import write_text_atomic

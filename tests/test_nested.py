@@ -198,7 +198,9 @@ def test_nested_is_not_above_naive_and_equals_it_for_one_configuration(knn_sweep
         single = report[(dataset, "knn7")]  # a one-configuration grid selects it everywhere
         assert single["nested_accuracy"] == pytest.approx(single["naive_accuracy"], abs=1e-15)
         assert single["optimism"] == pytest.approx(0.0, abs=1e-15)
-        assert {c["config"] for c in single["choices"]} == {single["naive_config"]} == {"knn7"}
+        assert {c["config"] for c in single["choices"]} == {single["naive_config"]}
+        # one configuration, shared with the knn block (same id): named once, after that block
+        assert single["naive_config"] == "knn · n_neighbors=7"
 
 
 def test_status_counts_inner_jobs_and_selections(knn_sweep: Path) -> None:
@@ -224,6 +226,9 @@ def test_tuned_rows_take_part_in_table_and_compare(knn_sweep: Path) -> None:
     assert compared["wins"] + compared["ties"] + compared["losses"] == 2
     ranked = json.loads(ok(run_foldsweep("rank", knn_sweep, "--only-tuned", "--json")).stdout)
     assert sorted(r["config_id"] for r in ranked["average_ranks"]) == ["knn (tuned)", "knn7 (tuned)"]
+    study = knn_sweep.parent / "tuned.html"
+    ok(run_foldsweep("report", knn_sweep, "--only-tuned", "--out", study))
+    assert "knn7 (tuned)" in study.read_text() and "n_neighbors=15" not in study.read_text()
 
 
 # ---- inner jobs are ordinary jobs: resume, grow ---------------------------------------------
