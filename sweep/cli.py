@@ -247,6 +247,13 @@ def cmd_failures(args: argparse.Namespace) -> int:
              if f["config_id"] in view.names else f["config_id"], "config_id": f["config_id"],
              "repeat": f["repeat"], "fold": f["fold"], "attempts": f["attempts"],
              "error": "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))} for f in failed]
+    if view.plan.inner_k:  # an inner job of nested selection: its outer fold, and which inner fold
+        from sweep.nested import split_number
+
+        inner = {j.key for j in view.plan.inner_jobs}
+        for r in rows:
+            if r["key"] in inner:
+                r["fold"], r["inner_fold"] = split_number(r["fold"], view.plan.inner_k)
     if args.json:
         print(json.dumps(rows, ensure_ascii=False))
         return 0
@@ -260,7 +267,8 @@ def cmd_failures(args: argparse.Namespace) -> int:
     for message, members in sorted(groups.items(), key=lambda kv: -len(kv[1])):
         print(f"{len(members)} x {message}")
         for r in members:
-            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}  "
+            inner = f" inner fold {r['inner_fold']}" if "inner_fold" in r else ""
+            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}{inner}  "
                   f"attempts {r['attempts']}  key {r['key']}")
     return 0
 
