@@ -198,7 +198,7 @@ def cmd_configs(args: argparse.Namespace) -> int:
 
     view, store = open_tracker(args.spec, store_needed=False)  # before a first run: everything pending
     try:
-        counts = store.cell_counts(view.spec.name) if store is not None else []
+        counts = store.cell_counts(view.spec.name, scheme=view.plan.scheme) if store is not None else []
     finally:
         if store is not None:
             store.close()

@@ -498,12 +498,15 @@ class Store:
         with self.engine.connect() as conn:
             return dict(conn.execute(query).all())
 
-    def cell_counts(self, sweep: str, states: Sequence[str] = STATES) -> list[tuple[str, str, str, int]]:
+    def cell_counts(self, sweep: str, states: Sequence[str] = STATES,
+                    scheme: str | None = None) -> list[tuple[str, str, str, int]]:
         """(dataset, config_id, state, jobs) over the active jobs of ``sweep`` in ``states`` (leaving out
-        "done" reads only the unfinished jobs, through the (sweep, state) index)."""
+        "done" reads only the unfinished jobs, through the (sweep, state) index); of fold scheme ``scheme``
+        only, if given (the plan's: no inner job of nested selection)."""
         j = jobs_table.c
+        only = [] if scheme is None else [j.scheme == scheme]
         query = (sa.select(j.dataset, j.config_id, j.state, sa.func.count())
-                 .where(j.sweep == sweep, j.state.in_(list(states)), j.active)
+                 .where(j.sweep == sweep, j.state.in_(list(states)), j.active, *only)
                  .group_by(j.dataset, j.config_id, j.state))
         with self.engine.connect() as conn:
             return [(d, c, s, int(n)) for d, c, s, n in conn.execute(query)]

@@ -208,6 +208,8 @@ def test_status_counts_inner_jobs_and_selections(knn_sweep: Path) -> None:
     assert counts["total"] == 2 * 5 * 5 and counts["done"] == 2 * 5 * 5
     assert counts["inner"] == {"total": 150, "done": 150, "failed": 0, "pending": 0, "running": 0}
     assert counts["selections"] == {"done": 2 * 2 * 5, "total": 2 * 2 * 5}
+    configs = json.loads(ok(run_foldsweep("configs", knn_sweep, "--json")).stdout)  # outer folds only
+    assert {(c["done"], c["failed"], c["pending"]) for c in configs} == {(2 * 5, 0, 0)}
     text = ok(run_foldsweep("best", knn_sweep, "--nested")).stdout
     assert "iris · knn: nested accuracy" in text and "optimism" in text
 
