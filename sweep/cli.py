@@ -11,26 +11,46 @@
 
 Exit codes: 0 done; 1 ``run`` finished but jobs of the sweep are failed
 (see ``foldsweep failures``); 2 bad input of any kind (one line on standard
-error); 130 interrupted.
+error, argument errors too: :class:`OneLineParser`, with any password in a URL
+masked); 130 interrupted.
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import math
+import os
 import re
 import sys
-from typing import Any, Sequence
+from pathlib import Path
+from typing import Any, NoReturn, Sequence
 
-from sweep.errors import FoldsweepError, NoStoreYet, SelectionError
+from sweep.errors import FoldsweepError, NoStoreYet, SelectionError, UsageError
+from sweep.text import mask_passwords, printable
 
 EXIT_JOBS_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
+#: local worker processes at most, per core (beyond that, memory runs out long before any gain)
+WORKERS_PER_CORE = 8
+#: a dask scheduler address: [scheme://]host:port
+SCHEDULER_ADDRESS = re.compile(r"((?P<scheme>tcp|tls|ws|wss)://)?(?P<host>\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+)"
+                               r":(?P<port>\d{1,5})/?")
+
+
+class OneLineParser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line on standard error and exit code 2 (argparse's own
+    print the usage first); subcommand parsers are made of the same class."""
+
+    def error(self, message: str) -> NoReturn:
+        print(f"foldsweep: error: {self.prog.removeprefix('foldsweep ')}: {' '.join(message.split())}; "
+              f"see `{self.prog} --help`", file=sys.stderr)
+        sys.exit(EXIT_BAD_INPUT)
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="foldsweep", description="Cross-validation sweeps of fuzzy rule-based "
+    parser = OneLineParser(prog="foldsweep", description="Cross-validation sweeps of fuzzy rule-based "
                                      "classifiers: plan, run, resume, compare.")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
@@ -68,7 +88,7 @@ def build_parser() -> argparse.ArgumentParser:
     results = sub.add_parser("results", help="one row per finished job")
     results.add_argument("spec")
     results.add_argument("--format", choices=("csv", "parquet", "json"), default="csv")
-    results.add_argument("--out", default=None, help="file to write (default: standard output)")
+    results.add_argument("--out", type=out_file, default=None, help="file to write (default: standard output)")
     results.set_defaults(func=cmd_results)
 
     model = sub.add_parser("model", help="the model one fold job trained (a fuzzy rule base as text)",
@@ -104,9 +124,63 @@ def _positive(text: str) -> int:
     return value
 
 
+def out_file(text: str) -> str:
+    """An ``--out`` file: not a folder, in a folder that exists (checked before any work is done)."""
+    path = Path(text)
+    if path.is_dir():
+        raise argparse.ArgumentTypeError(f"{text!r} is a folder; give a file name")
+    if not path.parent.is_dir():
+        raise argparse.ArgumentTypeError(f"{text!r}: the folder {str(path.parent)!r} does not exist; create it first")
+    return text
+
+
+def number_between(low: float, high: float, *, integer: bool = False, open_ends: bool = False) -> Any:
+    """An argparse type: a finite number (an integer if ``integer``) within [low, high] (or (low, high))."""
+    words = f"an integer from {low} to {high}" if integer else (
+        f"a number above {low} and below {high}" if open_ends else f"a number from {low} to {high}")
+
+    def check(text: str) -> float | int:
+        try:
+            value = int(text) if integer else float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be {words}, got {text!r}") from None
+        inside = low < value < high if open_ends else low <= value <= high
+        if not math.isfinite(value) or not inside:
+            raise argparse.ArgumentTypeError(f"must be {words}, got {text!r}")
+        return value
+    return check
+
+
+def _check_run_arguments(args: argparse.Namespace) -> None:
+    """Refuse, before anything starts, arguments no run can use."""
+    if args.scheduler is not None:
+        _check_scheduler(args.scheduler)
+    cores = os.cpu_count() or 1
+    if args.scheduler is None and args.workers is not None and args.workers > WORKERS_PER_CORE * cores:
+        raise UsageError(f"--workers {args.workers}: at most {WORKERS_PER_CORE * cores} worker processes on this "
+                             f"machine ({WORKERS_PER_CORE} per core, {cores} cores); for more jobs at once, run them "
+                             "on a dask cluster (--scheduler ADDRESS) or start drivers on other hosts")
+
+
+def _check_scheduler(address: str) -> None:
+    """A dask scheduler address that is well formed and answers (before any job is planned)."""
+    import socket
+
+    found = SCHEDULER_ADDRESS.fullmatch(address)
+    if not found or not 0 < int(found["port"]) < 65536:
+        raise UsageError(f"--scheduler {address!r} is not a dask scheduler address; give tcp://HOST:PORT "
+                         "(or tls://, ws://, wss://), the address the scheduler printed when it started")
+    try:
+        socket.create_connection((found["host"].strip("[]"), int(found["port"])), timeout=10).close()
+    except OSError as exc:
+        raise UsageError(f"--scheduler {address!r}: cannot reach the dask scheduler ({exc.strerror or exc}); "
+                         "start it first, or check the address") from None
+
+
 def cmd_run(args: argparse.Namespace) -> int:
     from sweep.cluster_process import start_for
 
+    _check_run_arguments(args)
     # first, so that an embedded dask cluster comes up during the imports and the planning below;
     # the run owns it from here (and a process that dies before lets it go by dying)
     cluster = start_for(args.spec, args.backend, args.workers, args.scheduler)
@@ -145,8 +219,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     except NoStoreYet:
         store = None  # not run yet: everything is pending (and no file is created by asking)
     if store is not None:
-        try:
-            states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}
+        try:  # every job the spec plans, whichever sweep planned or ran it first
+            states = store.job_states([job.key for job in inputs.plan.jobs])
         finally:
             store.close()
         for job in inputs.plan.jobs:
@@ -168,7 +242,8 @@ def cmd_status(args: argparse.Namespace) -> int:
 
 
 def _last_line(error: str | None) -> str:
-    lines = [line.strip() for line in (error or "").strip().splitlines() if line.strip()]
+    """The last line of a stored traceback, without terminal control sequences."""
+    lines = [line.strip() for line in printable(error or "").strip().splitlines() if line.strip()]
     return lines[-1] if lines else "unknown error"
 
 
@@ -244,13 +319,9 @@ def cmd_failures(args: argparse.Namespace) -> int:
     return 0
 
 
-def clean_text(text: str) -> str:
-    """``text`` without terminal control: escape sequences and control characters other than newline and tab
-    (a stored error message may hold a library's colour codes, or anything a worker printed)."""
-    return _CONTROL.sub("", text.replace("\r\n", "\n"))
-
-
-_CONTROL = re.compile(r"\x1b\[[0-?]*[ -/]*[@-~]|\x1b\][^\x07\x1b]*(\x07|\x1b\\)?|\x1b.|[\x00-\x08\x0b-\x1f\x7f-\x9f]")
+#: the project's one stripping of terminal control from stored text (a library's colour codes, or anything a
+#: worker printed), under the name the report modules use
+clean_text = printable
 
 
 def cmd_results(args: argparse.Namespace) -> int:
@@ -330,7 +401,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except FoldsweepError as exc:
-        print(f"foldsweep: error: {exc}", file=sys.stderr)
+        print(f"foldsweep: error: {' '.join(printable(mask_passwords(str(exc))).split())}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("foldsweep: interrupted", file=sys.stderr)

@@ -25,7 +25,12 @@ import json
 import sys
 from typing import Any
 
+from sweep.cli import _positive, number_between, out_file
+
 __all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot", "cmd_report"]
+
+#: a significance level: strictly between 0 and 1
+ALPHA = number_between(0, 1, open_ends=True)
 
 
 def add_commands(subparsers: Any) -> None:
@@ -38,7 +43,7 @@ def add_commands(subparsers: Any) -> None:
     table.add_argument("--sd", action="store_true", help="show mean ± standard deviation")
     table.add_argument("--pivot", default=None, metavar="PARAM",
                        help="columns are this parameter's values (fix the others with --where)")
-    table.add_argument("--decimals", type=int, default=3)
+    table.add_argument("--decimals", type=number_between(0, 15, integer=True), default=3)
     table.add_argument("--legend", action="store_true",
                        help="columns headed C1, C2, ... with a legend of names and parameters (wide tables)")
     table.add_argument("--caption", default=None, help="LaTeX caption (default: the metric and what bold means)")
@@ -52,7 +57,7 @@ def add_commands(subparsers: Any) -> None:
     compare.add_argument("--zero-method", choices=("demsar", "wilcox", "pratt"), default="demsar",
                          help="zero differences: split between R+ and R- (Demšar), dropped (wilcox) or ranked then dropped (pratt)")
     compare.add_argument("--method", choices=("auto", "exact", "approx"), default="auto", help="Wilcoxon p-value")
-    compare.add_argument("--alpha", type=float, default=0.05, help="level the warnings about N refer to")
+    compare.add_argument("--alpha", type=ALPHA, default=0.05, help="level the warnings about N refer to")
     compare.add_argument("--partial", action="store_true",
                          help="use the folds both have on datasets with incomplete cells (default: complete cells only)")
     _bayes_options(compare)
@@ -60,14 +65,14 @@ def add_commands(subparsers: Any) -> None:
 
     rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
     _rank_options(rank)
-    rank.add_argument("--limit", type=int, default=20, help="rows shown of rankings and post-hoc tables")
+    rank.add_argument("--limit", type=_positive, default=20, help="rows shown of rankings and post-hoc tables")
     rank.set_defaults(func=cmd_rank)
 
     plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
     plot.add_argument("--kind", choices=("ranks", "heatmap"), default="ranks")
-    plot.add_argument("--out", required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
+    plot.add_argument("--out", type=out_file, required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
     plot.add_argument("--pivot", default=None, metavar="PARAM", help="heatmap columns are this parameter's values")
-    plot.add_argument("--limit", type=int, default=20, help="configurations drawn in the rank plot (best first)")
+    plot.add_argument("--limit", type=_positive, default=20, help="configurations drawn in the rank plot (best first)")
     plot.add_argument("--relative", choices=("difference", "rank", "none"), default="difference",
                       help="heatmap colour: distance to each dataset's best (default), rank within it, or raw")
     _rank_options(plot)
@@ -75,18 +80,18 @@ def add_commands(subparsers: Any) -> None:
 
     study = _command(subparsers, "report", "one self-contained HTML study report: completeness, failures, table, "
                      "winners, tests, plots, legend, reproducibility", out=False)
-    study.add_argument("--out", required=True, metavar="FILE", help="HTML file to write")
-    study.add_argument("--alpha", type=float, default=0.05)
+    study.add_argument("--out", type=out_file, required=True, metavar="FILE", help="HTML file to write")
+    study.add_argument("--alpha", type=ALPHA, default=0.05)
     study.add_argument("--partial", action="store_true",
                        help="paired tests over the folds the configurations share (default: complete cells only)")
-    study.add_argument("--limit", type=int, default=10,
+    study.add_argument("--limit", type=_positive, default=10,
                        help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
     _bayes_options(study)
     study.set_defaults(func=cmd_report)
 
 
 def _bayes_options(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--rope", type=float, default=0.01,
+    parser.add_argument("--rope", type=number_between(0, float("inf")), default=0.01,
                         help="region of practical equivalence of the Bayesian tests, in the metric's units (default 0.01)")
 
 
@@ -103,7 +108,8 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
         parser.add_argument("--where", default=None, metavar="FILTER",
                             help="only configurations matching an id or a filter such as reasoning=choquet,measure=power")
     if out:
-        parser.add_argument("--out", default=None, metavar="FILE", help="write to FILE (atomically) instead of standard output")
+        parser.add_argument("--out", type=out_file, default=None, metavar="FILE",
+                            help="write to FILE (atomically) instead of standard output")
     parser.add_argument("--json", action="store_true", help="machine-readable output")
     return parser
 
@@ -112,7 +118,7 @@ def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
                         default="auto", help="adjustment: holm against a control, shaffer over all pairs (auto)")
-    parser.add_argument("--alpha", type=float, default=0.05)
+    parser.add_argument("--alpha", type=ALPHA, default=0.05)
     parser.add_argument("--partial", action="store_true",
                         help="rank over the folds every configuration has (default: datasets with every cell complete)")
     parser.add_argument("--tie-correction", action="store_true",

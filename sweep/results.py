@@ -90,7 +90,7 @@ def results_frame(inputs: Any, store: Any, *, figures: bool = True, keys: bool =
     # results of a configuration under another worker version need the per-row version to be told apart
     mixed = any(c in version and v != version[c] for c, v in store.versions(**where))
     rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts or mixed,
-                                       metrics=list(metrics))
+                                       metrics=list(metrics), names={fp: name for name, fp in plan.datasets})
     frame = pd.DataFrame.from_records(rows, columns=columns)
     in_plan = frame["config_id"].map(version)
     frame = frame[(in_plan == frame["worker_version"]) if mixed else in_plan.notna()]
