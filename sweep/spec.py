@@ -47,6 +47,7 @@ from __future__ import annotations
 
 import difflib
 import hashlib
+import itertools
 import math
 import re
 import tomllib
@@ -358,6 +359,7 @@ def _model(block: Any, where: str) -> ModelBlock:
     grid_checked = {k: _grid_values(declared, name, k, v, where) for k, v in grid.items()}
     for key in fixed_checked.keys() & grid_checked.keys():
         raise SpecError(f"{where}: {key!r} is both in fixed and in grid; keep it in one of them")
+    _cross_check(worker, fixed_checked, grid_checked, where)
     return ModelBlock(
         label=_name(block.get("name", name), where, "name"),
         worker=name,
@@ -371,6 +373,18 @@ def _model(block: Any, where: str) -> ModelBlock:
         names=tuple(_named_rule(declared, name, entry, where, f"names[{i}]")
                     for i, entry in enumerate(_list(block.get("names", []), where, "names"))),
     )
+
+
+def _cross_check(worker: Any, fixed: Mapping[str, Any], grid: Mapping[str, tuple[Any, ...]], where: str) -> None:
+    """The worker's own check across parameters, on every grid combination (defaults filled in)."""
+    if worker.check is None:
+        return
+    base = {k: p.default for k, p in worker.params.items()} | dict(fixed)
+    for values in itertools.product(*grid.values()):
+        problems = worker.check(base | dict(zip(grid, values)))
+        if problems:
+            at = "fixed/grid" if grid else "fixed"
+            raise SpecError(f"{where}: {at}: {problems[0]}")
 
 
 def _name_template(value: Any, declared: Mapping[str, Any], where: str) -> str | None:

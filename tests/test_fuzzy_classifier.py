@@ -77,11 +77,12 @@ def test_stage_counts_shrink(wine):
 
 
 def test_uncovered_example_gets_majority_class():
-    # labels low/medium/high over [0, 2]; the medium examples are mixed (confidence 4/6 < 0.8), so no rule
-    # has "medium" and x = 1 (membership 1 in medium only) is covered by no rule (hand calculation)
+    # labels low/medium/high over [0, 2]; the medium examples are mixed (confidence 4/6 < 0.8), so with
+    # the candidate filter min_confidence = 0.8 no rule has "medium" and x = 1 (membership 1 in medium
+    # only) is covered by no rule (hand calculation)
     X = np.r_[np.zeros(5), np.full(5, 2.0), np.ones(6)][:, None]
     y = np.r_[np.zeros(5, int), np.ones(5, int), [0, 0, 1, 1, 1, 1]]
-    est = FuzzyRuleClassifier(labels=3, depth=1, evaluations=0, tuning=False).fit(X, y)
+    est = FuzzyRuleClassifier(labels=3, depth=1, evaluations=0, tuning=False, min_confidence=0.8).fit(X, y)
     probe = np.array([[1.0], [0.0], [2.0]])
     np.testing.assert_array_equal(est.uncovered(probe), [True, False, False])
     # class 1 holds 9 of 16 training examples: the majority

@@ -92,8 +92,8 @@ def test_support_and_confidence_by_hand():
 
 def test_mined_rule_weights_certainty_and_penalized():
     _, y, p, M = _two_label_data()
-    cf = mine_rules(M, p.item_var, y, 2, 0.05, 0.7, 1, "certainty")
-    pcf = mine_rules(M, p.item_var, y, 2, 0.05, 0.7, 1, "penalized_certainty")
+    cf = mine_rules(M, p.item_var, y, 2, 0.05, 0.8, 1, "certainty", min_confidence=0.7)
+    pcf = mine_rules(M, p.item_var, y, 2, 0.05, 0.8, 1, "penalized_certainty", min_confidence=0.7)
     # candidates (conf >= 0.7): low -> 0 (conf 7/9) and high -> 1 (conf 1.5/1.75, by hand)
     assert [(int(r[0]), int(c)) for r, c in zip(cf.items, cf.classes)] == [(0, 0), (1, 1)]
     np.testing.assert_allclose(cf.weight, [7 / 9, 1.5 / 1.75])
@@ -117,7 +117,48 @@ def test_minimum_support_scaled_by_class_share():
     assert (0, 0) in {(int(r[0]), int(c)) for r, c in zip(at_one.items, at_one.classes)}
 
 
-def _brute_force(M, item_var, y, n_classes, min_support, min_conf, depth):
+def _crisp_two_variables():
+    """Two nominal variables a, b in {0, 1}; twelve rows, class 0 holds 8 (hand-checkable).
+
+    rows (a, b, y): (0, 0, 0) x5, (0, 1, 1) x1, (1, 0, 0) x3, (1, 1, 1) x3.
+    """
+    rows = [(0, 0, 0)] * 5 + [(0, 1, 1)] + [(1, 0, 0)] * 3 + [(1, 1, 1)] * 3
+    data = np.array(rows, dtype=float)
+    p = build_partition(data[:, :2], np.array([True, True]), 3)
+    item = {(int(v), int(c)): i for i, (v, c) in enumerate(zip(p.item_var, p.item_label))}
+    return memberships(p, data[:, :2]), p, data[:, 2].astype(int), item
+
+
+def _class_rules(rules, pad, c):
+    return {tuple(int(i) for i in row if i != pad) for row, k in zip(rules.items, rules.classes) if k == c}
+
+
+def test_mining_published_confidence_semantics_by_hand():
+    # FARC-HD (Alcala-Fdez, Alcala, Herrera, IEEE TFS 19(5) 2011, section III-A): a node whose confidence
+    # exceeds the maximum confidence is a rule but is not expanded; every frequent node is a candidate.
+    M, p, y, item = _crisp_two_variables()
+    a0, a1, b0 = item[0, 0], item[0, 1], item[1, 0]
+    rules = mine_rules(M, p.item_var, y, 2, 0.05, 0.8, 2)
+    # class 0 (minimum support 0.05 * 8/12); by hand:
+    #   a=0: support 5/12, confidence 5/6 > 0.8 -> a rule, not expanded (so no {a=0, b=0}, support 5/12)
+    #   a=1: support 3/12, confidence 3/6 <= 0.8 -> a rule and expanded: {a=1, b=0} support 3/12, conf 1
+    #   b=0: support 8/12, confidence 1; b=1 and {a=1, b=1}: support 0 for class 0
+    assert _class_rules(rules, p.pad, 0) == {(a0,), (a1,), (b0,), (a1, b0)}
+    at = {(tuple(int(i) for i in r if i != p.pad), int(c)): k
+          for k, (r, c) in enumerate(zip(rules.items, rules.classes))}
+    assert rules.confidence[at[(a0,), 0]] == pytest.approx(5 / 6)
+    assert rules.confidence[at[(a1,), 0]] == pytest.approx(0.5)
+    assert rules.support[at[(a1, b0), 0]] == pytest.approx(3 / 12)
+    # a higher maximum confidence expands a=0 (5/6 <= 0.9): {a=0, b=0} appears
+    assert (a0, b0) in _class_rules(mine_rules(M, p.item_var, y, 2, 0.05, 0.9, 2), p.pad, 0)
+    # the optional filter drops only what is below it: a=1 (0.5) goes at 0.6, its child stays
+    filtered = mine_rules(M, p.item_var, y, 2, 0.05, 0.8, 2, min_confidence=0.6)
+    assert _class_rules(filtered, p.pad, 0) == {(a0,), (b0,), (a1, b0)}
+    # min_confidence left at 0 keeps even a low-confidence frequent rule (class 1: a=1 has conf 3/6)
+    assert (a1,) in _class_rules(rules, p.pad, 1)
+
+
+def _brute_force(M, item_var, y, n_classes, min_support, max_conf, depth, min_conf=0.0):
     """Every candidate rule by direct enumeration of item sets (plain loops)."""
     n = len(y)
     found = set()
@@ -134,9 +175,9 @@ def _brute_force(M, item_var, y, n_classes, min_support, min_conf, depth):
                 vars_ = [item_var[i] for i in itemset]
                 if len(set(vars_)) < k or vars_ != sorted(vars_):
                     continue
-                # reachable: every proper prefix frequent and not above the confidence threshold
+                # reachable: every proper prefix frequent and not above the maximum confidence
                 prefixes = [stats(itemset[:j]) for j in range(1, k)]
-                if any(s < minsup or cf > min_conf for s, cf in prefixes):
+                if any(s < minsup or cf > max_conf for s, cf in prefixes):
                     continue
                 s, cf = stats(itemset)
                 if s >= minsup and cf >= min_conf:
@@ -144,14 +185,14 @@ def _brute_force(M, item_var, y, n_classes, min_support, min_conf, depth):
     return found
 
 
-@pytest.mark.parametrize("depth", [1, 2, 3])
-def test_search_tree_matches_enumeration_respects_depth_and_variables(depth):
+@pytest.mark.parametrize("depth, min_conf", [(1, 0.0), (2, 0.0), (3, 0.0), (3, 0.6)])
+def test_search_tree_matches_enumeration_respects_depth_and_variables(depth, min_conf):
     rng = np.random.default_rng(1)
     X = rng.random((60, 4))
     y = (X[:, 0] + 0.5 * X[:, 1] > 0.8).astype(int)
     p = build_partition(X, np.zeros(4, bool), 3)
     M = memberships(p, X)
-    rules = mine_rules(M, p.item_var, y, 2, 0.05, 0.75, depth)
+    rules = mine_rules(M, p.item_var, y, 2, 0.05, 0.75, depth, min_confidence=min_conf)
     got = set()
     for row, c in zip(rules.items, rules.classes):
         items = tuple(int(i) for i in row if i != p.pad)
@@ -160,7 +201,7 @@ def test_search_tree_matches_enumeration_respects_depth_and_variables(depth):
         assert len(set(vars_)) == len(vars_)  # never two items of one variable
         got.add((items, int(c)))
     assert len(got) == len(rules)  # no duplicates
-    assert got == _brute_force(M, p.item_var, y, 2, 0.05, 0.75, depth)
+    assert got == _brute_force(M, p.item_var, y, 2, 0.05, 0.75, depth, min_conf)
     assert len(got) > 0
 
 
@@ -243,6 +284,24 @@ def test_chc_solves_onemax_within_budget_deterministically():
     assert a.bits.all()
     assert a.evaluations == 3000
     assert a.fitness == b.fitness and np.array_equal(a.real, b.real)
+
+
+def test_chc_four_offspring_keeps_the_best_two_of_each_mating():
+    # the four-offspring mating of Alcala, Alcala-Fdez, Herrera (IEEE TFS 15(4), 2007; from memory):
+    # both PCBLX children with both HUX children, the best two of each four enter the survival
+    from workers.fuzzy.genetic import _best_two_of_four
+
+    real = np.arange(8.0)[:, None]
+    bits = np.zeros((8, 2), dtype=bool)
+    fit = np.array([0.1, 0.9, 0.5, 0.7, 0.3, 0.3, 0.2, 0.8])
+    r, _, f = _best_two_of_four(real, bits, fit)
+    assert list(r[:, 0]) == [1, 3, 4, 7] and list(f) == [0.9, 0.7, 0.3, 0.8]  # a tie keeps the first
+
+    def onemax(reals, bits):
+        return bits.mean(axis=1) - np.abs(reals).mean(axis=1)
+
+    out = chc(onemax, 3, 24, 20, 3000, np.random.default_rng(5), four=True)
+    assert out.bits.all() and out.evaluations == 3000
 
 
 def test_chc_restarts_when_population_stalls():

@@ -86,3 +86,19 @@ def test_one_fold_job_through_run_job():
     assert result.ok, result.error
     assert result.accuracy > 0.7 and result.figures["rules_selected"] >= 1
     assert result.model_text.startswith("IF ")
+
+
+def test_min_confidence_above_max_confidence_is_a_spec_error(tmp_path):
+    from sweep.errors import SpecError
+    from sweep.spec import load_spec
+
+    head = '[folds]\nk = 3\n[[dataset]]\nname = "iris"\nbuiltin = "iris"\n[[model]]\nworker = "fuzzy_rules"\n'
+    path = tmp_path / "s.toml"
+    path.write_text(head + "fixed = { min_confidence = 0.9 }\n")  # above the default max_confidence 0.8
+    with pytest.raises(SpecError, match=r"s\.toml.*min_confidence \(0\.9\) must not exceed max_confidence"):
+        load_spec(path)
+    path.write_text(head + "grid = { min_confidence = [0.0, 0.5], max_confidence = [0.6, 0.4] }\n")
+    with pytest.raises(SpecError, match=r"min_confidence \(0\.5\) must not exceed max_confidence \(0\.4\)"):
+        load_spec(path)
+    path.write_text(head + "grid = { min_confidence = [0.0, 0.5], max_confidence = [0.6, 0.9] }\n")
+    assert load_spec(path).models[0].grid["max_confidence"] == (0.6, 0.9)

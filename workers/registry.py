@@ -11,6 +11,10 @@ version means new jobs), its parameter declarations and two functions:
 ``report(estimator, X_test) -> dict``  (optional)
     after fitting: ``{"figures": {name: number}, "model_text": str | None}``,
     the model size figures and a readable model stored with the job.
+``check(params) -> list[str]``  (optional)
+    problems across parameters of one complete canonical parameter set
+    (each declared parameter alone is checked by its :class:`Param`); the
+    spec reports the first as a one-line error.
 
 Built-in workers are imported lazily, on first use, so that the command
 line starts fast. A spec may also name ``"package.module:attribute"``, an
@@ -52,6 +56,8 @@ class Worker:
     build: Callable[[dict[str, Any], Any], Any] = field(compare=False)
     #: (fitted estimator, X_test) -> {"figures": {...}, "model_text": str | None}
     report: Callable[[Any, Any], dict[str, Any]] | None = field(default=None, compare=False)
+    #: (complete params) -> problems across parameters, [] when none
+    check: Callable[[dict[str, Any]], list[str]] | None = field(default=None, compare=False)
 
 
 _loaded: dict[str, Worker] = {}

@@ -22,7 +22,24 @@ in the rule base). CHC (Eshelman 1991) as used by FARC-HD:
 
 Choices left open by the method, documented here: the decrement of L by
 one (Eshelman's original), alpha = 1, and random restarts around nothing
-but the best chromosome. Everything random comes from one
+but the best chromosome.
+
+Points checked against the paper (issue 11) where this module is not sure
+of what FARC-HD (Alcalá-Fdez, Alcalá, Herrera, IEEE TFS 19(5) 2011) does:
+
+* offspring per mating: here two, child k taking PCBLX's child k and HUX's
+  child k. The genetic lateral tuning with rule selection that FARC-HD
+  builds on (Alcalá, Alcalá-Fdez, Herrera, IEEE TFS 15(4) 2007) combines the
+  two PCBLX children with the two HUX children into four and keeps the best
+  two (from memory, not checked against the FARC-HD text), each of the four
+  costing an evaluation: ``chc(..., four=True)``. Measured (stratified
+  5-fold, seeds 0 and 1, default parameters, 15,000 evaluations): glass
+  64.3 % with two vs 62.6 % with four, Pima 78.6 % vs 78.5 %; two stays the
+  default (closer to the about 70 % published on glass, from memory);
+* threshold: L starts at a quarter of the chromosome's bit length and drops
+  by one per generation without a surviving offspring (from memory the 2007
+  paper may drop it by the bits of one real gene); restart when L < 0. Not
+  changed, not measured. Everything random comes from one
 ``numpy.random.Generator``, so a seed fixes the run.
 """
 
@@ -86,7 +103,7 @@ FitnessFn = Callable[[np.ndarray, np.ndarray], np.ndarray]
 
 
 def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluations: int,
-        rng: np.random.Generator) -> Outcome:
+        rng: np.random.Generator, four: bool = False) -> Outcome:
     """Maximise ``fitness(real, bits)`` with CHC.
 
     Parameters
@@ -103,6 +120,10 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
     evaluations : int
         Budget of fitness evaluations (at least 1).
     rng : numpy.random.Generator
+    four : bool, default=False
+        Each mating yields four offspring (both PCBLX children with both HUX
+        children), each evaluated, of which the best two enter the
+        survival; otherwise two (see the module docstring).
     """
     pop = max(2, population)
     real = rng.uniform(LOW, HIGH, size=(pop, n_real))
@@ -119,11 +140,13 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
     restarts = generations = 0
     while used < budget:
         generations += 1
-        kids_real, kids_bits = _offspring(real, bits, threshold, rng)
+        kids_real, kids_bits = _offspring(real, bits, threshold, rng, four)
         kids_real, kids_bits = kids_real[: budget - used], kids_bits[: budget - used]
         if len(kids_real):
             kids_fit = np.asarray(fitness(kids_real, kids_bits), dtype=float)
             used += len(kids_real)
+            if four:
+                kids_real, kids_bits, kids_fit = _best_two_of_four(kids_real, kids_bits, kids_fit)
             real, bits, fit, new = _survive(real, bits, fit, kids_real, kids_bits, kids_fit, size)
         else:
             new = False
@@ -137,7 +160,7 @@ def chc(fitness: FitnessFn, n_real: int, n_bits: int, population: int, evaluatio
     return Outcome(real[best].copy(), bits[best].copy(), float(fit[best]), used, restarts, generations)
 
 
-def _offspring(real, bits, threshold, rng):
+def _offspring(real, bits, threshold, rng, four=False):
     order = rng.permutation(len(real))
     a, b = order[0::2][: len(order) // 2], order[1::2]
     gray = gray_code(real)
@@ -147,9 +170,23 @@ def _offspring(real, bits, threshold, rng):
         return real[:0], bits[:0]
     r1, r2 = pcblx(real[a], real[b], rng)
     b1, b2 = hux(bits[a], bits[b], rng)
+    if four:
+        kids_real = np.stack([r1, r2, r1, r2], axis=1).reshape(4 * len(a), real.shape[1])
+        kids_bits = np.stack([b1, b2, b2, b1], axis=1).reshape(4 * len(a), bits.shape[1])
+        return kids_real, kids_bits
     kids_real = np.stack([r1, r2], axis=1).reshape(2 * len(a), real.shape[1])
     kids_bits = np.stack([b1, b2], axis=1).reshape(2 * len(a), bits.shape[1])
     return kids_real, kids_bits
+
+
+def _best_two_of_four(real, bits, fit):
+    """Per mating (four consecutive offspring; the budget may cut the last), the best two."""
+    keep = []
+    for s in range(0, len(fit), 4):
+        group = np.arange(s, min(s + 4, len(fit)))
+        keep.extend(group[np.argsort(-fit[group], kind="stable")[:2]])
+    keep = np.sort(np.asarray(keep, dtype=np.intp))
+    return real[keep], bits[keep], fit[keep]
 
 
 def pcblx(x: np.ndarray, y: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:

@@ -11,8 +11,10 @@ _PARAMS: dict[str, Param] = {
     "labels": Param("int", 5, low=2, high=15, doc="linguistic terms per numeric variable"),
     "min_support": Param("float", 0.05, low=0.0, high=1.0, low_open=True,
                          doc="minimum fuzzy support, scaled per class by its share"),
-    "min_confidence": Param("float", 0.8, low=0.0, high=1.0, low_open=True,
-                            doc="minimum confidence; nodes above it are not expanded"),
+    "max_confidence": Param("float", 0.8, low=0.0, high=1.0, low_open=True,
+                            doc="mining stops expanding a node whose confidence exceeds it"),
+    "min_confidence": Param("float", 0.0, low=0.0, high=1.0,
+                            doc="optional filter of the candidate rules (0: none); at most max_confidence"),
     "depth": Param("int", 3, low=1, high=10, doc="maximum antecedents per rule"),
     "cover_limit": Param("int", 2, low=1, high=100, doc="times a pattern is covered before removal (kt)"),
     "population": Param("int", 50, low=2, high=10_000, doc="CHC population size"),
@@ -59,4 +61,14 @@ def report(estimator: Any, X_test: Any) -> dict[str, Any]:
     return {"figures": figures, "model_text": estimator.rule_text()}
 
 
-FUZZY_RULES = Worker(name="fuzzy_rules", version="1", params=_PARAMS, build=build, report=report)
+def check(params: dict[str, Any]) -> list[str]:
+    """Problems across parameters of one complete parameter set (defaults filled in)."""
+    if params["min_confidence"] > params["max_confidence"]:
+        return [(f"min_confidence ({params['min_confidence']!r}) must not exceed "
+                 f"max_confidence ({params['max_confidence']!r})")]
+    return []
+
+
+# version 2: the published mining semantics (max_confidence stops expansion, no confidence filter by default)
+FUZZY_RULES = Worker(name="fuzzy_rules", version="2", params=_PARAMS, build=build, report=report,
+                     check=check)
