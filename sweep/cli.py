@@ -8,6 +8,10 @@
     foldsweep best | table | compare | rank | plot SPEC ...      (see sweep.report_cli)
 
 Bad input of any kind ends with one line on standard error and exit code 2.
+
+Exit codes: 0 done (failed jobs included: see ``status``), 2 bad input, and for a run stopped by a
+signal 128 + its number: 130 SIGINT (Ctrl-C), 143 SIGTERM, 129 SIGHUP (what finished is committed,
+the rest is pending again; a second signal exits at once with the same code).
 """
 
 from __future__ import annotations
@@ -86,22 +90,17 @@ def _positive(text: str) -> int:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from sweep.cluster_process import start_for
-
-    # first, so that an embedded dask cluster comes up during the imports and the planning below;
-    # the run owns it from here (and a process that dies before lets it go by dying)
-    cluster = start_for(args.spec, args.backend, args.workers, args.scheduler)
     from sweep.run import RunOptions, run_sweep
 
     options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
                          retry_failed=args.retry_failed, claim=args.claim,
                          accept_changed_data=args.accept_changed_data, progress=args.progress)
-    summary = run_sweep(args.spec, options, cluster=cluster)
+    summary = run_sweep(args.spec, options)
     if args.json:
         print(json.dumps(summary.__dict__))
     else:
         print(_describe_run(summary))
-    return EXIT_INTERRUPTED if summary.interrupted else 0
+    return 128 + (summary.signal or 2) if summary.interrupted else 0
 
 
 def _describe_run(s: Any) -> str:
@@ -225,9 +224,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except FoldsweepError as exc:
         print(f"foldsweep: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:  # before the run loop started (sweep.run.Interrupted) or elsewhere
         print("foldsweep: interrupted", file=sys.stderr)
-        return EXIT_INTERRUPTED
+        return 128 + int(getattr(exc, "signum", 2))
     except BrokenPipeError:
         return 0
 
