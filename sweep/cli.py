@@ -116,7 +116,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     from sweep.run import load_inputs, open_store
 
     inputs = load_inputs(args.spec)
-    counts = {"total": len(inputs.plan.jobs), "done": 0, "failed": 0, "pending": 0, "running": 0}
+    # "gone": running jobs whose driver is gone (dead, or its lease expired); the next run re-queues them
+    counts = {"total": len(inputs.plan.jobs), "done": 0, "failed": 0, "pending": 0, "running": 0, "gone": 0}
     failures: dict[str, int] = {}
     try:
         store = open_store(inputs.spec, create=False)
@@ -125,11 +126,12 @@ def cmd_status(args: argparse.Namespace) -> int:
     if store is not None:
         try:
             states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}
+            gone = store.held_by_gone([j.key for j in inputs.plan.jobs])
         finally:
             store.close()
         for job in inputs.plan.jobs:
             state, error, timed_out = states.get(job.key, ("pending", None, False))
-            counts[state] += 1
+            counts["gone" if job.key in gone else state] += 1
             if state == "failed":
                 message = "timed out" if timed_out else _last_line(error)
                 failures[message] = failures.get(message, 0) + 1
@@ -139,7 +141,9 @@ def cmd_status(args: argparse.Namespace) -> int:
         print(json.dumps({**counts, "failures": failures}))
         return 0
     print(f"sweep {inputs.spec.name!r}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
-          f"{counts['running']} running, {counts['pending']} pending")
+          f"{counts['running']} running, {counts['pending']} pending"
+          + (f", {counts['gone']} held by a driver that is gone (pending again at the next run)"
+             if counts["gone"] else ""))
     for message, n in sorted(failures.items(), key=lambda kv: -kv[1]):
         print(f"  {n} failed: {message}")
     return 0

@@ -12,7 +12,7 @@ Tables (``results_schema/schema.sql`` is the same, written out)::
 
 Job states: ``pending`` → ``running`` (claimed by an owner with a lease) →
 ``done`` | ``failed``. A running job whose lease expired, or whose owner
-process on this host is gone, goes back to ``pending``. Only the driver
+process is certainly gone (:mod:`sweep.identity`), goes back to ``pending``. Only the driver
 writes, in batched transactions; a result row and its job's ``done`` state
 are written in the same transaction, so a kill at any moment leaves either
 both or neither.
@@ -27,7 +27,6 @@ import json
 import os
 import socket
 import time
-import uuid
 from dataclasses import dataclass
 from typing import Any, Iterable, Literal, Mapping, Sequence
 
@@ -142,8 +141,10 @@ class Claimed:
 
 
 def owner_id() -> str:
-    """Identity of this driver process: host, pid and a random token."""
-    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+    """Identity of this driver process (:func:`sweep.identity.owner_id`)."""
+    from sweep.identity import owner_id
+
+    return owner_id()
 
 
 class Store:
@@ -431,6 +432,20 @@ class Store:
 
     # ---- reading ---------------------------------------------------------------------------
 
+    def held_by_gone(self, keys: Sequence[str], now: float | None = None) -> set[str]:
+        """The keys among ``keys`` of running jobs whose driver is gone (its lease expired, or it is
+        certainly dead: :func:`sweep.identity.is_gone`); the next run gives them back to pending."""
+        now = time.time() if now is None else now
+        j = jobs_table.c
+        gone: set[str] = set()
+        with self.engine.connect() as conn:
+            for chunk in _chunks(list(keys), 900):
+                for key, owner, lease in conn.execute(sa.select(j.key, j.owner, j.lease_expires)
+                                                      .where(j.key.in_(chunk), j.state == "running")):
+                    if (lease is not None and lease < now) or _dead_here(owner, ""):
+                        gone.add(key)
+        return gone
+
     def job_states(self, sweep: str) -> list[tuple[str, str, str | None, bool]]:
         """(key, state, error, timed_out) of every active job of ``sweep``."""
         j = jobs_table.c
@@ -543,18 +558,11 @@ def _sqlite_begin(conn: sa.Connection) -> None:
 
 
 def _dead_here(owner: str | None, host: str) -> bool:
-    if not owner:
-        return True
-    parts = owner.split(":")
-    if len(parts) < 3 or parts[0] != host or not parts[1].isdigit():
-        return False
-    try:
-        os.kill(int(parts[1]), 0)
-    except ProcessLookupError:
-        return True
-    except PermissionError:
-        return False
-    return False
+    """Whether ``owner`` is certainly gone (``host`` is unused: :func:`sweep.identity.is_gone` checks
+    the host along with the boot and the PID namespace)."""
+    from sweep.identity import is_gone
+
+    return is_gone(owner)
 
 
 def _chunks(items: Sequence[Any], size: int) -> Iterable[Sequence[Any]]:
