@@ -73,7 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
     try:
         from sweep import report_cli
     except ImportError:  # pragma: no cover - the report commands are optional while being built
-        report_cli = None
+        report_cli = None  # type: ignore[assignment]
     if report_cli is not None:
         report_cli.add_commands(sub)
     return parser
@@ -125,7 +125,7 @@ def cmd_status(args: argparse.Namespace) -> int:
         store = None  # not run yet: everything is pending (and no file is created by asking)
     if store is not None:
         try:
-            states = {key: rest for key, *rest in store.job_states(inputs.spec.name)}
+            states = {key: (state, error, timed_out) for key, state, error, timed_out in store.job_states(inputs.spec.name)}
             gone = store.held_by_gone([j.key for j in inputs.plan.jobs])
         finally:
             store.close()

@@ -32,7 +32,9 @@ taken from the jobs.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import os
 import queue
+import signal
 from typing import Any, Iterable
 
 from sweep.errors import StoreError
@@ -138,6 +140,14 @@ class DaskExecutor(Executor):
         return Verdict.UNKNOWN
 
     def close(self, *, kill: bool = False, timeout: float | None = None) -> None:
+        if kill and self.cluster is not None:  # stopped: the jobs in flight are given back, not finished
+            for nanny in list(self.cluster.workers.values()):
+                pid = getattr(nanny, "pid", None)
+                if pid:
+                    try:
+                        os.kill(pid, signal.SIGKILL)
+                    except ProcessLookupError:
+                        pass
         self.client.close()
         if self.cluster is not None:
             self.cluster.close(timeout=timeout)

@@ -620,7 +620,7 @@ def compare(
     diff = np.round(x - y, stats.DECIMALS)
     wil = None
     if (diff != 0).any():
-        wil = stats.signed_rank(x, y, higher_is_better=up, zero_method=zero_method, method=method)
+        wil = stats.signed_rank(x, y, higher_is_better=up, zero_method=zero_method, method=method)  # type: ignore[arg-type]
     return Comparison(metric, up, ida, idb, [str(d) for d in full.index], dropped, sign, wil)
 
 
@@ -812,7 +812,8 @@ def _save_figure(fig, path: str | os.PathLike) -> None:
 
 def _cd_groups(ranks: np.ndarray, cd: float) -> list[tuple[int, int]]:
     """Maximal runs (i, j) of rank-sorted configurations whose spread is below CD."""
-    groups, j = [], 0
+    groups: list[tuple[int, int]] = []
+    j = 0
     for i in range(ranks.size):
         j = max(j, i)
         while j + 1 < ranks.size and ranks[j + 1] - ranks[i] < cd:

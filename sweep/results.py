@@ -97,4 +97,4 @@ def load_sweep_results(spec_path: str | Path, metrics: Sequence[str] | None = No
     plan = inputs.plan
     planned = pd.DataFrame([(name, c.config_id, plan.jobs_per_cell) for name, _ in plan.datasets
                             for c in plan.configurations], columns=["dataset", "config_id", "jobs"])
-    return SweepResults(frame=frame, params=params, planned=planned, spec_path=Path(spec_path))
+    return SweepResults(frame=frame, params=params, planned=planned, spec_path=str(spec_path))

@@ -329,7 +329,7 @@ def friedman_from_ranks(average_ranks, n: int, *, tie_factor: float | None = Non
     k = avg.size
     chi2 = 12.0 * n / (k * (k + 1)) * (float((avg**2).sum()) - k * (k + 1) ** 2 / 4.0)
     corrected = tie_factor is not None
-    chi2 = max(chi2 / (tie_factor if corrected else 1.0), 0.0)
+    chi2 = max(chi2 / (tie_factor if tie_factor is not None else 1.0), 0.0)
     denom = n * (k - 1) - chi2
     ff = math.inf if denom <= 0 else (n - 1) * chi2 / denom
     return FriedmanResult(

@@ -208,7 +208,7 @@ class Store:
             raise StoreError(f"{_where(self.url)}: this database holds other tables and is not a "
                              "foldsweep store; point 'store' at a new file or database")
         with self.engine.connect() as conn:
-            value = conn.execute(sa.select(meta_table.c.value)
+            value: Any = conn.execute(sa.select(meta_table.c.value)
                                  .where(meta_table.c.name == "schema_version")).scalar()
         try:
             return int(value)
@@ -322,7 +322,7 @@ class Store:
         query = (sa.select(jobs_table.c.state, sa.func.count()).where(jobs_table.c.sweep == sweep,
                  jobs_table.c.active).group_by(jobs_table.c.state))
         with self.engine.connect() as conn:
-            found = dict(conn.execute(query).all())
+            found: dict[str, int] = dict(conn.execute(query).tuples().all())
         return {state: int(found.get(state, 0)) for state in STATES}
 
     def requeue_stale(self, sweep: str, now: float | None = None) -> int:
@@ -455,7 +455,7 @@ class Store:
 
     def done_results(self, *, scheme: str, fingerprints: Sequence[str], repeats: int, k: int,
                      figures: bool = True, keys: bool = True, hosts: bool = True,
-                     metrics: Sequence[str]) -> tuple[list[tuple[Any, ...]], list[str]]:
+                     metrics: Sequence[str]) -> tuple[Sequence[Any], list[str]]:
         """(rows, column names) of the results on these datasets (fingerprints) and folds, with the
         ``metrics`` columns.
 
@@ -525,7 +525,7 @@ def _insert_new(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str
     if conn.dialect.name == "sqlite":
         from sqlalchemy.dialects.sqlite import insert
     elif conn.dialect.name == "postgresql":
-        from sqlalchemy.dialects.postgresql import insert
+        from sqlalchemy.dialects.postgresql import insert  # type: ignore[assignment]
     else:
         conn.execute(sa.insert(table), list(rows))
         return
