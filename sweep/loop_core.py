@@ -47,7 +47,8 @@ from __future__ import annotations
 
 import enum
 from dataclasses import dataclass, field
-from typing import Protocol, Sequence, Union
+from collections.abc import Sequence
+from typing import Protocol
 
 #: the most jobs in one task (short jobs go several to a task; see task_size)
 MAX_BATCH = 64
@@ -154,7 +155,7 @@ class Interrupt:
     now: float
 
 
-Event = Union[Start, JobsClaimed, TaskFinished, TaskLost, Requeued, Tick, Interrupt]
+Event = Start | JobsClaimed | TaskFinished | TaskLost | Requeued | Tick | Interrupt
 
 
 # ---- actions --------------------------------------------------------------------------------
@@ -205,7 +206,7 @@ class Stop:
     interrupted: bool
 
 
-Action = Union[Claim, Submit, Commit, Release, Renew, RequeueStale, Stop]
+Action = Claim | Submit | Commit | Release | Renew | RequeueStale | Stop
 
 
 # ---- the state machine ----------------------------------------------------------------------

@@ -37,11 +37,34 @@ from pathlib import Path
 from typing import Any, Mapping, TextIO
 
 from sweep.errors import DatasetError
+from sweep.loop_core import (
+    GUIDED_FRACTION,
+    MAX_BATCH,
+    Action,
+    Claim,
+    Commit,
+    Event,
+    Held,
+    Interrupt,
+    JobsClaimed,
+    LoopCore,
+    Release,
+    Renew,
+    Requeued,
+    RequeueStale,
+    Settings,
+    Start,
+    Stop,
+    Submit,
+    TaskFinished,
+    TaskLost,
+    Tick,
+    Verdict,
+    task_size,
+    task_sizes,
+)
 from sweep.plan import Plan, make_plan
 from sweep.spec import Spec, load_spec
-from sweep.loop_core import (GUIDED_FRACTION, MAX_BATCH, Action, Claim, Commit, Event, Held, Interrupt, JobsClaimed,
-                             LoopCore, Release, Renew, Requeued, RequeueStale, Settings, Start, Stop, Submit,
-                             TaskFinished, TaskLost, Tick, Verdict, task_size, task_sizes)
 from sweep.store import Claimed, Store, owner_id
 
 __all__ = ["GUIDED_FRACTION", "MAX_BATCH", "Inputs", "RunOptions", "RunSummary", "load_inputs", "open_store",

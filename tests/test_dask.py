@@ -2,9 +2,9 @@
 
 - an embedded LocalCluster of 2 worker processes over TLS on loopback gives the same result rows
   as the joblib backend; it refuses a client without its credentials (none, or TLS of its own);
-- an existing cluster (a LocalCluster started here, its scheduler in this process) reached with
-  ``--scheduler tcp://127.0.0.1:PORT`` gives the same rows, runs every job there, and receives each
-  dataset once (one scatter per dataset, counted at the scheduler), not once per job.
+- an existing TLS-secured cluster (a LocalCluster started here, its scheduler in this process)
+  reached with ``--scheduler tls://127.0.0.1:PORT`` and its credentials in dask's configuration
+  gives the same rows, runs every job there, and receives each dataset once (one scatter per dataset, counted at the scheduler), not once per job.
 """
 
 from __future__ import annotations
@@ -47,11 +47,11 @@ def _ok(proc: Any) -> Any:
     return proc
 
 
-def _run(folder: Path, *extra: str) -> tuple[Path, dict[str, Any]]:
+def _run(folder: Path, *extra: str, env: dict[str, str] | None = None) -> tuple[Path, dict[str, Any]]:
     folder.mkdir(parents=True, exist_ok=True)
     spec = folder / "sweep.toml"
     spec.write_text(SPEC)
-    proc = _ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra))
+    proc = _ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra, env=env))
     return spec, json.loads(proc.stdout.strip().splitlines()[-1])
 
 
@@ -137,15 +137,26 @@ class _Counter:
 
 def test_existing_scheduler_runs_the_jobs_and_receives_each_dataset_once(
         tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
+    # a TLS-secured scheduler, its credentials given to foldsweep as the README shows (dask's own
+    # configuration, through environment variables)
     from distributed import LocalCluster
+    from distributed.security import Security
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                      dashboard_address=None, scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+    security = Security.temporary()
+    files = {"CA_FILE": security.tls_ca_file, "CLIENT__CERT": security.tls_client_cert,
+             "CLIENT__KEY": security.tls_client_key}
+    env = {"DASK_DISTRIBUTED__COMM__REQUIRE_ENCRYPTION": "True"}
+    for name, pem in files.items():
+        path = tmp_path / f"{name.lower()}.pem"
+        path.write_text(pem)
+        env[f"DASK_DISTRIBUTED__COMM__TLS__{name}"] = str(path)
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tls",
+                      security=security, dashboard_address=None, scheduler_kwargs={"dashboard_address": None},
                       silence_logs=50) as cluster:
         counter = _Counter(cluster.scheduler)
         address = cluster.scheduler_address
-        assert address.startswith("tcp://127.0.0.1:")
-        spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address)
+        assert address.startswith("tls://127.0.0.1:")
+        spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address, env=env)
         assert (summary["done"], summary["failed"], summary["ran"]) == (JOBS, 0, JOBS)
         # every fold job ran on this cluster: the driver has no other executor, and the tasks it sent
         # (one or more jobs each: jobs of milliseconds are batched) all finished there
