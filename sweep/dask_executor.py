@@ -80,7 +80,11 @@ class DaskExecutor(Executor):
         self.cluster: Any = None
         self._config: Any = None
         self._files: FileShare | None = None
+        #: the keys of the tasks that finished (their done-callbacks), and the futures not yet handed back:
+        #: a future the run loop has collected is referenced nowhere any more, so dask forgets its
+        #: result (else a worker's death later makes the scheduler compute it again)
         self._finished: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        self._futures: dict[Any, Any] = {}
         #: fingerprint -> (dataset, the future of its scattered copies)
         self._shared: dict[str, tuple[Any, Any]] = {}
         if scheduler:
@@ -106,7 +110,8 @@ class DaskExecutor(Executor):
     def submit(self, jobs: list[Job], handle: Any) -> Any:
         future = self.client.submit(run_jobs, jobs, self._current(jobs[0].fingerprint, handle), pure=False,
                                     retries=0)
-        future.add_done_callback(self._finished.put)  # also when it errs or is cancelled
+        self._futures[future.key] = future
+        future.add_done_callback(lambda f: self._finished.put(f.key))  # also when it errs or is cancelled
         return future
 
     def _current(self, fingerprint: str, handle: Any) -> Any:
@@ -120,16 +125,23 @@ class DaskExecutor(Executor):
     def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
         # the finished futures arrive through their done-callbacks (see submit): waiting costs the
         # scheduler's event loop nothing, where distributed.wait sets up a waiter per future per call
-        pending = set(futures)
-        done = {f for f in pending if f.done()}
+        self._keep_workers()
+        keys: set[Any] = set()
         try:
-            if not done:
-                done.add(self._finished.get(timeout=timeout))
+            keys.add(self._finished.get(timeout=timeout))
             while True:
-                done.add(self._finished.get_nowait())
+                keys.add(self._finished.get_nowait())
         except queue.Empty:
             pass
-        return done & pending  # the others were collected already (through the first line)
+        pending = set(futures)
+        done = {self._futures.pop(k) for k in keys if k in self._futures}
+        return (done | {f for f in pending if f.done()}) & pending
+
+    def _keep_workers(self) -> None:
+        """Bring the embedded cluster back to its size should nannies have closed (seen on a loaded
+        machine after several worker deaths in a row: the run then waited for ever)."""
+        if self.cluster is not None and len(self.cluster.workers) < self.workers:
+            self.cluster.scale(self.workers)
 
     def verdict(self, exc: BaseException) -> Verdict:
         # KilledWorker: a worker died with the task assigned to it; a worker may hold more than the
