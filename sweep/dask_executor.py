@@ -143,6 +143,11 @@ class DaskExecutor(Executor):
         if self.cluster is not None and len(self.cluster.workers) < self.workers:
             self.cluster.scale(self.workers)
 
+    def forget(self, future: Any) -> None:
+        # its result stays on a worker while any client holds the key: released now, a later death of
+        # that worker does not make the scheduler compute the task again
+        future.release()
+
     def verdict(self, exc: BaseException) -> Verdict:
         # KilledWorker: a worker died with the task assigned to it; a worker may hold more than the
         # task it runs, so which one killed it is not known. Cancelled or a closed connection: the
@@ -176,5 +181,5 @@ def local_cluster(workers: int, memory_limit: str | None) -> Any:
 
     return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
                         protocol="tls", security=Security.temporary(), dashboard_address=None,
-                        scheduler_kwargs={"dashboard_address": None},
+                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},  # never the shared 8787
                         memory_limit=memory_limit or "auto", silence_logs=50)

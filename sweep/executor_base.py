@@ -52,6 +52,9 @@ class Executor:
         died and which task was running on it is not known."""
         return Verdict.UNKNOWN
 
+    def forget(self, future: Any) -> None:
+        """The run loop has read ``future``'s outcome: the executor may drop what it keeps for it."""
+
     def close(self, *, kill: bool = False) -> None:
         pass
 

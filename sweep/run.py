@@ -302,10 +302,10 @@ class _Loop:
             events: deque[Event] = deque([Start(time.monotonic(), counts["pending"])])
             while not self.stopped:
                 while events and not self.stopped:
-                    for action in self.core.handle(events.popleft()):
-                        answer = self._do(action)
-                        if answer is not None:
-                            events.append(answer)
+                    answers = [a for a in map(self._do, self.core.handle(events.popleft())) if a is not None]
+                    # an answer (jobs claimed, jobs re-queued) comes before any event still waiting, so that
+                    # the core never decides on, say, an interrupt while a claim it made is unknown to it
+                    events.extendleft(reversed(answers))
                 if not self.stopped:
                     events.extend(self._wait())
         except BaseException:
@@ -335,6 +335,12 @@ class _Loop:
     def _outcome(self, future: Any) -> Event:
         task = self.tasks.pop(future)
         now = time.monotonic()
+        try:
+            return self._read(future, task, now)
+        finally:
+            self.executor.forget(future)
+
+    def _read(self, future: Any, task: int, now: float) -> Event:
         try:
             return TaskFinished(now, task, tuple(future.result()))
         except KeyboardInterrupt:  # Ctrl-C reached the worker too (the whole process group)
