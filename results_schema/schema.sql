@@ -1,4 +1,4 @@
--- foldsweep tracker, schema version 1 (generated from sweep/store.py)
+-- foldsweep tracker, schema version 2 (generated from sweep/store.py)
 
 CREATE TABLE configurations (
 	config_id VARCHAR(32) NOT NULL, 
@@ -32,7 +32,6 @@ CREATE TABLE folds (
 CREATE TABLE jobs (
 	"key" VARCHAR(40) NOT NULL, 
 	sweep VARCHAR(200) NOT NULL, 
-	active BOOLEAN NOT NULL, 
 	dataset VARCHAR(200) NOT NULL, 
 	fingerprint VARCHAR(32) NOT NULL, 
 	config_id VARCHAR(32) NOT NULL, 
@@ -51,7 +50,7 @@ CREATE TABLE jobs (
 	PRIMARY KEY ("key")
 );
 
-CREATE INDEX jobs_by_sweep_state ON jobs (sweep, state);
+CREATE INDEX jobs_by_state ON jobs (state);
 
 CREATE TABLE meta (
 	name VARCHAR(64) NOT NULL, 
@@ -88,5 +87,14 @@ CREATE TABLE results (
 	host VARCHAR(200) NOT NULL, 
 	finished_at FLOAT NOT NULL, 
 	PRIMARY KEY ("key"), 
+	FOREIGN KEY("key") REFERENCES jobs ("key")
+);
+
+CREATE TABLE sweep_jobs (
+	sweep VARCHAR(200) NOT NULL, 
+	"key" VARCHAR(40) NOT NULL, 
+	dataset VARCHAR(200) NOT NULL, 
+	active BOOLEAN NOT NULL, 
+	PRIMARY KEY (sweep, "key"), 
 	FOREIGN KEY("key") REFERENCES jobs ("key")
 );

@@ -5,8 +5,14 @@ entry as written, the bytes of its file (hashed; never the name or the
 modification time alone), the versions of the libraries that generate or
 parse it, and ``CACHE_FORMAT``. Any change is a miss, so a changed file is
 always parsed again and its new fingerprint seen. ``FOLDSWEEP_CACHE`` sets
-the folder (default ``~/.cache/foldsweep``); ``FOLDSWEEP_CACHE=off`` turns
-it off.
+the folder (default ``~/.cache/foldsweep/datasets``); ``FOLDSWEEP_CACHE=off``
+turns it off.
+
+An entry is one ``.npz`` file of plain arrays (features, classes, and the
+dataset's other fields as JSON text in a byte array), read with
+``allow_pickle=False``: reading it cannot run code, whoever wrote it. The
+folder is made private (mode 0700); a folder another user owns, or one that
+others can write to and that cannot be made private, is not used at all.
 """
 
 from __future__ import annotations
@@ -14,12 +20,11 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import pickle
 from importlib import metadata
 from pathlib import Path
 from typing import Any, Mapping
 
-CACHE_FORMAT = "2"  # 2: with missing = "impute", empty cells stay NaN
+CACHE_FORMAT = "3"  # 2: with missing = "impute", empty cells stay NaN; 3: .npz + JSON instead of pickle
 
 
 def cache_dir() -> Path | None:
@@ -34,21 +39,49 @@ def cached_load(entry: Mapping[str, Any], base_dir: Path, where: str) -> Any:
     from sweep.datasets import load_dataset, validate_entry
 
     folder = cache_dir()
-    if folder is None:
+    if folder is None or not _private(folder):
         return load_dataset(entry, base_dir=base_dir, where=where)
     validate_entry(entry, where)
     key = _key(entry, base_dir)
     if key is None:  # e.g. the file is missing: let the loader say so
         return load_dataset(entry, base_dir=base_dir, where=where)
-    path = folder / f"{key}.pickle"
+    path = folder / f"{key}.npz"
     try:
-        with open(path, "rb") as handle:
-            return pickle.load(handle)
-    except Exception:  # a miss, or an unreadable entry: parse again
+        return _read(path)
+    except Exception:  # noqa: BLE001 - a miss, or an unreadable entry: parse again
         pass
     data = load_dataset(entry, base_dir=base_dir, where=where)
-    _store(folder, path, data)
+    _store(path, data)
     return data
+
+
+def _private(folder: Path) -> bool:
+    """Make ``folder`` (mode 0700) or check that it is this user's and writable by no one else."""
+    try:
+        folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+        info = folder.stat()
+        if info.st_uid != os.getuid():
+            return False
+        if info.st_mode & 0o077:
+            folder.chmod(0o700)
+        return True
+    except OSError:  # e.g. a read-only home: no cache, and no reason to fail a run
+        return False
+
+
+def _read(path: Path) -> Any:
+    import numpy as np
+
+    from sweep.datasets import Dataset
+
+    with np.load(path, allow_pickle=False) as entry:
+        meta = json.loads(entry["meta"].tobytes().decode())
+        X, y = entry["X"], entry["y"]
+    X.setflags(write=False)
+    y.setflags(write=False)
+    categories = tuple(None if c is None else tuple(c) for c in meta["categories"])
+    return Dataset(meta["name"], X, y, tuple(meta["feature_names"]), tuple(meta["nominal"]), categories,
+                   tuple(meta["classes"]), meta["fingerprint"], meta["source"])
 
 
 def _key(entry: Mapping[str, Any], base_dir: Path) -> str | None:
@@ -72,12 +105,16 @@ def _version(package: str) -> str:
         return "absent"
 
 
-def _store(folder: Path, path: Path, data: Any) -> None:
+def _store(path: Path, data: Any) -> None:
+    import numpy as np
+
+    from sweep.writing import atomic_write
+
+    meta = dict(name=data.name, feature_names=list(data.feature_names), nominal=list(data.nominal),
+                categories=[None if c is None else list(c) for c in data.categories], classes=list(data.classes),
+                fingerprint=data.fingerprint, source=data.source)
+    text = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
     try:
-        folder.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_suffix(f".{os.getpid()}.tmp")
-        with open(tmp, "wb") as handle:
-            pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
-        os.replace(tmp, path)
+        atomic_write(path, lambda handle: np.savez(handle, X=data.X, y=data.y, meta=text))
     except OSError:
-        pass  # a read-only home is no reason to fail a run
+        pass  # a full disk is no reason to fail a run

@@ -4,31 +4,55 @@
 
     foldsweep run SPEC [--workers N] [--backend joblib|dask] [--scheduler ADDR] [--retry-failed] [--claim N]
     foldsweep status SPEC [--json]
+    foldsweep configs SPEC [--json]
+    foldsweep failures SPEC [--json] [--traceback KEY]
     foldsweep results SPEC [--format csv|parquet|json] [--out FILE]
-    foldsweep best | table | compare | rank | plot SPEC ...      (see sweep.report_cli)
+    foldsweep best | table | compare | rank | plot | report SPEC ...      (see sweep.report_cli)
 
-Bad input of any kind ends with one line on standard error and exit code 2.
-
-Exit codes: 0 done (failed jobs included: see ``status``), 2 bad input, and for a run stopped by a
-signal 128 + its number: 130 SIGINT (Ctrl-C), 143 SIGTERM, 129 SIGHUP (what finished is committed,
-the rest is pending again; a second signal exits at once with the same code).
+Exit codes: 0 done; 1 ``run`` finished but jobs of the sweep are failed
+(see ``foldsweep failures``); 2 bad input of any kind (one line on standard
+error, argument errors too: :class:`OneLineParser`, with any password in a URL
+masked); for a run stopped by a signal 128 + its number: 130 SIGINT (Ctrl-C),
+143 SIGTERM, 129 SIGHUP (what finished is committed, the rest is pending again;
+a second signal exits at once with the same code).
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import math
+import os
+import re
 import sys
-from typing import Any, Sequence
+from pathlib import Path
+from typing import Any, NoReturn, Sequence
 
-from sweep.errors import FoldsweepError, NoStoreYet, SelectionError
+from sweep.errors import FoldsweepError, NoStoreYet, SelectionError, UsageError
+from sweep.text import mask_passwords, printable
 
+EXIT_JOBS_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130
+#: local worker processes at most, per core (beyond that, memory runs out long before any gain)
+WORKERS_PER_CORE = 8
+#: a dask scheduler address: [scheme://]host:port
+SCHEDULER_ADDRESS = re.compile(r"((?P<scheme>tcp|tls|ws|wss)://)?(?P<host>\[[0-9A-Fa-f:.]+\]|[A-Za-z0-9_.\-]+)"
+                               r":(?P<port>\d{1,5})/?")
+
+
+class OneLineParser(argparse.ArgumentParser):
+    """An argument parser whose errors are one line on standard error and exit code 2 (argparse's own
+    print the usage first); subcommand parsers are made of the same class."""
+
+    def error(self, message: str) -> NoReturn:
+        print(f"foldsweep: error: {self.prog.removeprefix('foldsweep ')}: {' '.join(message.split())}; "
+              f"see `{self.prog} --help`", file=sys.stderr)
+        sys.exit(EXIT_BAD_INPUT)
 
 
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="foldsweep", description="Cross-validation sweeps of fuzzy rule-based "
+    parser = OneLineParser(prog="foldsweep", description="Cross-validation sweeps of fuzzy rule-based "
                                      "classifiers: plan, run, resume, compare.")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
@@ -50,10 +74,23 @@ def build_parser() -> argparse.ArgumentParser:
     status.add_argument("--json", action="store_true")
     status.set_defaults(func=cmd_status)
 
+    configs = sub.add_parser("configs", help="one line per configuration: id, name, model, parameters, folds "
+                             "done/failed/pending")
+    configs.add_argument("spec")
+    configs.add_argument("--json", action="store_true")
+    configs.set_defaults(func=cmd_configs)
+
+    failures = sub.add_parser("failures", help="one line per failed job, grouped by error message")
+    failures.add_argument("spec")
+    failures.add_argument("--json", action="store_true")
+    failures.add_argument("--traceback", default=None, metavar="KEY",
+                          help="print the stored traceback of one job (its key or a unique prefix)")
+    failures.set_defaults(func=cmd_failures)
+
     results = sub.add_parser("results", help="one row per finished job")
     results.add_argument("spec")
     results.add_argument("--format", choices=("csv", "parquet", "json"), default="csv")
-    results.add_argument("--out", default=None, help="file to write (default: standard output)")
+    results.add_argument("--out", type=out_file, default=None, help="file to write (default: standard output)")
     results.set_defaults(func=cmd_results)
 
     model = sub.add_parser("model", help="the model one fold job trained (a fuzzy rule base as text)",
@@ -64,7 +101,7 @@ def build_parser() -> argparse.ArgumentParser:
     model.add_argument("spec")
     model.add_argument("key", nargs="?", default=None, help="the job's key, or a unique prefix of it")
     model.add_argument("--dataset", default=None)
-    model.add_argument("--config", default=None, help="configuration id (or a unique prefix)")
+    model.add_argument("--config", default=None, help="configuration name, id or a unique id prefix")
     model.add_argument("--repeat", type=int, default=0)
     model.add_argument("--fold", type=int, default=0)
     model.add_argument("--json", action="store_true")
@@ -89,7 +126,61 @@ def _positive(text: str) -> int:
     return value
 
 
+def out_file(text: str) -> str:
+    """An ``--out`` file: not a folder, in a folder that exists (checked before any work is done)."""
+    path = Path(text)
+    if path.is_dir():
+        raise argparse.ArgumentTypeError(f"{text!r} is a folder; give a file name")
+    if not path.parent.is_dir():
+        raise argparse.ArgumentTypeError(f"{text!r}: the folder {str(path.parent)!r} does not exist; create it first")
+    return text
+
+
+def number_between(low: float, high: float, *, integer: bool = False, open_ends: bool = False) -> Any:
+    """An argparse type: a finite number (an integer if ``integer``) within [low, high] (or (low, high))."""
+    words = f"an integer from {low} to {high}" if integer else (
+        f"a number above {low} and below {high}" if open_ends else f"a number from {low} to {high}")
+
+    def check(text: str) -> float | int:
+        try:
+            value = int(text) if integer else float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be {words}, got {text!r}") from None
+        inside = low < value < high if open_ends else low <= value <= high
+        if not math.isfinite(value) or not inside:
+            raise argparse.ArgumentTypeError(f"must be {words}, got {text!r}")
+        return value
+    return check
+
+
+def _check_run_arguments(args: argparse.Namespace) -> None:
+    """Refuse, before anything starts, arguments no run can use."""
+    if args.scheduler is not None:
+        _check_scheduler(args.scheduler)
+    cores = os.cpu_count() or 1
+    if args.scheduler is None and args.workers is not None and args.workers > WORKERS_PER_CORE * cores:
+        raise UsageError(f"--workers {args.workers}: at most {WORKERS_PER_CORE * cores} worker processes on this "
+                             f"machine ({WORKERS_PER_CORE} per core, {cores} cores); for more jobs at once, run them "
+                             "on a dask cluster (--scheduler ADDRESS) or start drivers on other hosts")
+
+
+def _check_scheduler(address: str) -> None:
+    """A dask scheduler address that is well formed and answers (before any job is planned)."""
+    import socket
+
+    found = SCHEDULER_ADDRESS.fullmatch(address)
+    if not found or not 0 < int(found["port"]) < 65536:
+        raise UsageError(f"--scheduler {address!r} is not a dask scheduler address; give tcp://HOST:PORT "
+                         "(or tls://, ws://, wss://), the address the scheduler printed when it started")
+    try:
+        socket.create_connection((found["host"].strip("[]"), int(found["port"])), timeout=10).close()
+    except OSError as exc:
+        raise UsageError(f"--scheduler {address!r}: cannot reach the dask scheduler ({exc.strerror or exc}); "
+                         "start it first, or check the address") from None
+
+
 def cmd_run(args: argparse.Namespace) -> int:
+    _check_run_arguments(args)
     from sweep.run import RunOptions, run_sweep
 
     options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
@@ -100,7 +191,9 @@ def cmd_run(args: argparse.Namespace) -> int:
         print(json.dumps(summary.__dict__))
     else:
         print(_describe_run(summary))
-    return 128 + (summary.signal or 2) if summary.interrupted else 0
+    if summary.interrupted:
+        return 128 + (summary.signal or 2)
+    return EXIT_JOBS_FAILED if summary.failed else 0
 
 
 def _describe_run(s: Any) -> str:
@@ -124,8 +217,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     except NoStoreYet:
         store = None  # not run yet: everything is pending (and no file is created by asking)
     if store is not None:
-        try:
-            states = {key: (state, error, timed_out) for key, state, error, timed_out in store.job_states(inputs.spec.name)}
+        try:  # every job the spec plans, whichever sweep planned or ran it first
+            states = store.job_states([job.key for job in inputs.plan.jobs])
             gone = store.held_by_gone([j.key for j in inputs.plan.jobs])
         finally:
             store.close()
@@ -150,17 +243,93 @@ def cmd_status(args: argparse.Namespace) -> int:
 
 
 def _last_line(error: str | None) -> str:
-    lines = [line.strip() for line in (error or "").strip().splitlines() if line.strip()]
+    """The last line of a stored traceback, without terminal control sequences."""
+    lines = [line.strip() for line in printable(error or "").strip().splitlines() if line.strip()]
     return lines[-1] if lines else "unknown error"
 
 
+def cmd_configs(args: argparse.Namespace) -> int:
+    from sweep.results import open_tracker
+
+    view, store = open_tracker(args.spec, store_needed=False)  # before a first run: everything pending
+    try:
+        counts = store.cell_counts(view.spec.name) if store is not None else []
+    finally:
+        if store is not None:
+            store.close()
+    done: dict[str, int] = {}
+    failed: dict[str, int] = {}
+    for _, cid, state, n in counts:
+        if state in ("done", "failed"):
+            (done if state == "done" else failed)[cid] = (done if state == "done" else failed).get(cid, 0) + n
+    per_config = len(view.plan.datasets) * view.plan.jobs_per_cell
+    given = {b.label: {*b.fixed, *b.grid} for b in view.spec.models}
+    rows = []
+    for c in view.plan.configurations:
+        n = view.names[c.config_id]
+        d, f = done.get(c.config_id, 0), failed.get(c.config_id, 0)
+        rows.append({"id": c.config_id, "name": n.name, "model": n.model, "params": dict(n.params),
+                     "done": d, "failed": f, "pending": per_config - d - f, "_given": given.get(n.model, set())})
+    if args.json:
+        print(json.dumps([{k: v for k, v in r.items() if k != "_given"} for r in rows], ensure_ascii=False))
+        return 0
+    width = max(len(r["name"]) for r in rows)
+    for r in rows:
+        params = ", ".join(f"{k}={v}" for k, v in r["params"].items() if k in r["_given"]) or "defaults"
+        print(f"{r['id']}  {r['name']:<{width}}  {r['model']}: {params}  "
+              f"(folds: {r['done']} done, {r['failed']} failed, {r['pending']} pending of {per_config})")
+    return 0
+
+
+def cmd_failures(args: argparse.Namespace) -> int:
+    from sweep.results import open_tracker
+
+    view, store = open_tracker(args.spec)
+    try:
+        failed = store.failed_jobs(view.spec.name)
+    finally:
+        store.close()
+    if args.traceback is not None:
+        found = [f for f in failed if f["key"].startswith(args.traceback.lower())]
+        if len(found) != 1:
+            what = "no failed job has" if not found else f"{len(found)} failed jobs have"
+            raise SelectionError(f"{args.spec}: {what} a key starting with {args.traceback!r} "
+                                 "(keys: foldsweep failures SPEC --json)")
+        job = found[0]
+        print(clean_text(job["error"] or ("timed out" if job["timed_out"] else "no traceback stored")).rstrip())
+        return 0
+    rows = [{"key": f["key"], "dataset": f["dataset"], "config": view.names[f["config_id"]].name
+             if f["config_id"] in view.names else f["config_id"], "config_id": f["config_id"],
+             "repeat": f["repeat"], "fold": f["fold"], "attempts": f["attempts"],
+             "error": "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))} for f in failed]
+    if args.json:
+        print(json.dumps(rows, ensure_ascii=False))
+        return 0
+    if not rows:
+        print(f"sweep {view.spec.name!r}: no failed jobs")
+        return 0
+    groups: dict[str, list[dict[str, Any]]] = {}
+    for r in rows:
+        groups.setdefault(r["error"], []).append(r)
+    print(f"sweep {view.spec.name!r}: {len(rows)} failed jobs, {len(groups)} distinct errors")
+    for message, members in sorted(groups.items(), key=lambda kv: -len(kv[1])):
+        print(f"{len(members)} x {message}")
+        for r in members:
+            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}  "
+                  f"attempts {r['attempts']}  key {r['key']}")
+    return 0
+
+
+#: the project's one stripping of terminal control from stored text (a library's colour codes, or anything a
+#: worker printed), under the name the report modules use
+clean_text = printable
+
+
 def cmd_results(args: argparse.Namespace) -> int:
-    from sweep.results import results_frame
-    from sweep.run import load_inputs, open_store
+    from sweep.results import open_tracker, results_frame
     from sweep.writing import write_frame
 
-    inputs = load_inputs(args.spec)
-    store = open_store(inputs.spec, create=False)
+    inputs, store = open_tracker(args.spec)
     try:
         frame, _ = results_frame(inputs, store)
     finally:
@@ -180,14 +349,17 @@ def cmd_model(args: argparse.Namespace) -> int:
         stored = store.stored_model(job.key)
     finally:
         store.close()
-    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {job.config_id} {config.label!r}, "
+    from sweep.naming import name_configurations
+
+    name = name_configurations(inputs.spec, inputs.plan)[job.config_id].name
+    where = (f"job {job.key[:12]} (dataset {job.dataset!r}, configuration {name!r} [{job.config_id}], "
              f"repeat {job.repeat}, fold {job.fold})")
     if stored is None:
         raise SelectionError(f"{args.spec}: {where} has no result yet (see `foldsweep status`)")
     if stored["model_text"] is None:
         raise SelectionError(f"{args.spec}: {where}: worker {config.worker!r} stores no model text")
     if args.json:
-        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id,
+        print(json.dumps({"key": job.key, "dataset": job.dataset, "config_id": job.config_id, "name": name,
                           "label": config.label, "repeat": job.repeat, "fold": job.fold, **stored}))
         return 0
     print(f"{where}: test accuracy {stored['accuracy']:.4f}, training accuracy {stored['train_accuracy']:.4f}")
@@ -205,7 +377,11 @@ def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
         raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "
                              "(with --repeat and --fold, default 0)")
     else:
-        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(args.config)
+        from sweep.naming import name_configurations
+
+        named = [cid for cid, n in name_configurations(inputs.spec, inputs.plan).items() if n.name == args.config]
+        config = named[0] if named else args.config  # a configuration's name, its id or an id prefix
+        found = [j for j in jobs if j.dataset == args.dataset and j.config_id.startswith(config)
                  and j.repeat == args.repeat and j.fold == args.fold]
         what = (f"dataset {args.dataset!r}, configuration {args.config!r}, repeat {args.repeat}, "
                 f"fold {args.fold}")
@@ -226,7 +402,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return int(args.func(args) or 0)
     except FoldsweepError as exc:
-        print(f"foldsweep: error: {exc}", file=sys.stderr)
+        print(f"foldsweep: error: {' '.join(printable(mask_passwords(str(exc))).split())}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt as exc:  # before the run loop started (sweep.run.Interrupted) or elsewhere
         print("foldsweep: interrupted", file=sys.stderr)

@@ -89,6 +89,9 @@ SYNTHETIC_KEYS: dict[str, str] = {
     "random_state": "int",
 }
 
+#: the most feature values a synthetic dataset may have (it is generated in memory, as float64)
+SYNTHETIC_MAX_VALUES = 50_000_000
+
 _FINGERPRINT_FORMAT = "foldsweep-dataset/1"
 
 
@@ -306,6 +309,11 @@ def _validate_synthetic(entry: Mapping, where: str) -> None:
         problem = _type_problem(SYNTHETIC_KEYS[key], value)
         if problem:
             raise SpecError(f"{where}: key 'synthetic.{key}' must be {problem}, got {value!r}")
+    n, p = table.get("n_samples", 100), table.get("n_features", 20)  # make_classification's defaults
+    if n * p > SYNTHETIC_MAX_VALUES:
+        raise SpecError(f"{where}: synthetic n_samples x n_features = {n:,} x {p:,} is more than the limit of "
+                        f"{SYNTHETIC_MAX_VALUES:,} values ({SYNTHETIC_MAX_VALUES * 8 // 2**20:,} MiB); for larger "
+                        "data, generate it once and give it as a file (Parquet)")
 
 
 def _is_int(v: Any) -> bool:

@@ -8,7 +8,8 @@
     ├── StoreError            the tracker cannot be opened or written
     │   ├── SchemaVersionError  a store written by another schema version
     │   └── NoStoreYet        no tracker yet at the spec's store (nothing has run)
-    └── SelectionError        a configuration id or filter that matches nothing (reports)
+    ├── SelectionError        a configuration id or filter that matches nothing (reports)
+    └── UsageError            a command-line argument no command can use (checked before any work)
 
 Every message names the file, the key and what is allowed, so that a user
 can fix the input without reading a traceback.
@@ -43,3 +44,7 @@ class NoStoreYet(StoreError):
 
 class SelectionError(FoldsweepError):
     """A configuration id or parameter filter that selects nothing."""
+
+
+class UsageError(FoldsweepError):
+    """A command-line argument that no command can use (refused before anything starts)."""

@@ -1,15 +1,19 @@
-"""The report subcommands of ``foldsweep``: best, table, compare, rank, plot.
+"""The report subcommands of ``foldsweep``: best, table, compare, rank, plot, report.
 
 ::
 
     foldsweep best SPEC [--metric M] [--where FILTER] [--json] [--out FILE]
-    foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--where FILTER] [--out FILE] [--json]
-    foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
-    foldsweep rank SPEC [--metric M] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
-    foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--metric M] [--control CONFIG] [--json]
+    foldsweep table SPEC [--metric M] [--format markdown|latex|csv] [--sd] [--pivot PARAM] [--legend]
+                         [--caption TEXT] [--label KEY] [--where FILTER] [--out FILE] [--json]
+    foldsweep compare SPEC CONFIG_A CONFIG_B [--metric M] [--partial] [--alpha A] [--rope R]
+                         [--zero-method demsar|wilcox|pratt] [--json] [--out FILE]
+    foldsweep rank SPEC [--metric M] [--partial] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
+    foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--relative difference|rank|none] [--metric M] [--json]
+    foldsweep report SPEC --out study.html [--metric M] [--alpha A] [--rope R] [--partial]
 
-A CONFIG is a configuration id (or a unique prefix of one) or a parameter
-filter such as ``reasoning=choquet,measure=power``. Every handler returns an
+A CONFIG is a configuration's name (as ``foldsweep configs`` lists it), its id
+(or a unique prefix of one) or a parameter filter such as
+``reasoning=choquet,measure=power``. Every handler returns an
 exit code and raises :class:`~sweep.errors.FoldsweepError` subclasses for
 bad input; ``sweep.cli.main`` prints those on one line (exit code 2).
 """
@@ -21,7 +25,12 @@ import json
 import sys
 from typing import Any
 
-__all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot"]
+from sweep.cli import _positive, number_between, out_file
+
+__all__ = ["add_commands", "cmd_best", "cmd_table", "cmd_compare", "cmd_rank", "cmd_plot", "cmd_report"]
+
+#: a significance level: strictly between 0 and 1
+ALPHA = number_between(0, 1, open_ends=True)
 
 
 def add_commands(subparsers: Any) -> None:
@@ -34,7 +43,11 @@ def add_commands(subparsers: Any) -> None:
     table.add_argument("--sd", action="store_true", help="show mean ± standard deviation")
     table.add_argument("--pivot", default=None, metavar="PARAM",
                        help="columns are this parameter's values (fix the others with --where)")
-    table.add_argument("--decimals", type=int, default=3)
+    table.add_argument("--decimals", type=number_between(0, 15, integer=True), default=3)
+    table.add_argument("--legend", action="store_true",
+                       help="columns headed C1, C2, ... with a legend of names and parameters (wide tables)")
+    table.add_argument("--caption", default=None, help="LaTeX caption (default: the metric and what bold means)")
+    table.add_argument("--label", default=None, help="LaTeX \\label key (default tab:METRIC)")
     table.set_defaults(func=cmd_table)
 
     compare = _command(subparsers, "compare", "two configurations paired over datasets: wins/ties/losses, sign test, Wilcoxon",
@@ -44,20 +57,42 @@ def add_commands(subparsers: Any) -> None:
     compare.add_argument("--zero-method", choices=("demsar", "wilcox", "pratt"), default="demsar",
                          help="zero differences: split between R+ and R- (Demšar), dropped (wilcox) or ranked then dropped (pratt)")
     compare.add_argument("--method", choices=("auto", "exact", "approx"), default="auto", help="Wilcoxon p-value")
+    compare.add_argument("--alpha", type=ALPHA, default=0.05, help="level the warnings about N refer to")
+    compare.add_argument("--partial", action="store_true",
+                         help="use the folds both have on datasets with incomplete cells (default: complete cells only)")
+    _bayes_options(compare)
     compare.set_defaults(func=cmd_compare)
 
     rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
     _rank_options(rank)
-    rank.add_argument("--limit", type=int, default=20, help="rows shown of rankings and post-hoc tables")
+    rank.add_argument("--limit", type=_positive, default=20, help="rows shown of rankings and post-hoc tables")
     rank.set_defaults(func=cmd_rank)
 
     plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
     plot.add_argument("--kind", choices=("ranks", "heatmap"), default="ranks")
-    plot.add_argument("--out", required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
+    plot.add_argument("--out", type=out_file, required=True, metavar="FILE", help="image to write: .png, .pdf or .svg")
     plot.add_argument("--pivot", default=None, metavar="PARAM", help="heatmap columns are this parameter's values")
-    plot.add_argument("--limit", type=int, default=20, help="configurations drawn in the rank plot (best first)")
+    plot.add_argument("--limit", type=_positive, default=20, help="configurations drawn in the rank plot (best first)")
+    plot.add_argument("--relative", choices=("difference", "rank", "none"), default="difference",
+                      help="heatmap colour: distance to each dataset's best (default), rank within it, or raw")
     _rank_options(plot)
     plot.set_defaults(func=cmd_plot)
+
+    study = _command(subparsers, "report", "one self-contained HTML study report: completeness, failures, table, "
+                     "winners, tests, plots, legend, reproducibility", out=False)
+    study.add_argument("--out", type=out_file, required=True, metavar="FILE", help="HTML file to write")
+    study.add_argument("--alpha", type=ALPHA, default=0.05)
+    study.add_argument("--partial", action="store_true",
+                       help="paired tests over the folds the configurations share (default: complete cells only)")
+    study.add_argument("--limit", type=_positive, default=10,
+                       help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
+    _bayes_options(study)
+    study.set_defaults(func=cmd_report)
+
+
+def _bayes_options(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--rope", type=number_between(0, float("inf")), default=0.01,
+                        help="region of practical equivalence of the Bayesian tests, in the metric's units (default 0.01)")
 
 
 def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: bool = True) -> argparse.ArgumentParser:
@@ -73,7 +108,8 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
         parser.add_argument("--where", default=None, metavar="FILTER",
                             help="only configurations matching an id or a filter such as reasoning=choquet,measure=power")
     if out:
-        parser.add_argument("--out", default=None, metavar="FILE", help="write to FILE (atomically) instead of standard output")
+        parser.add_argument("--out", type=out_file, default=None, metavar="FILE",
+                            help="write to FILE (atomically) instead of standard output")
     parser.add_argument("--json", action="store_true", help="machine-readable output")
     return parser
 
@@ -82,7 +118,9 @@ def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
                         default="auto", help="adjustment: holm against a control, shaffer over all pairs (auto)")
-    parser.add_argument("--alpha", type=float, default=0.05)
+    parser.add_argument("--alpha", type=ALPHA, default=0.05)
+    parser.add_argument("--partial", action="store_true",
+                        help="rank over the folds every configuration has (default: datasets with every cell complete)")
     parser.add_argument("--tie-correction", action="store_true",
                         help="divide chi2_F by the tie correction, as scipy.stats.friedmanchisquare (default: Demšar's formula)")
 
@@ -129,10 +167,16 @@ def _best_text(frame) -> str:
         sd = "?" if r.sd != r.sd else f"{r.sd:.4f}"
         planned = "?" if r.planned != r.planned else f"{int(r.planned)}"
         state = "" if r.complete else "  [incomplete]"
-        params = ", ".join(f"{k}={v}" for k, v in (r.params or {}).items())
-        margin = "no runner-up" if r.margin != r.margin else f"margin {r.margin:.4f} over {r.runner_up}"
-        lines.append(f"{r.dataset}: {r.config_id} ({r.worker}; {params}) {r.metric} {r.mean:.4f} ± {sd}, "
-                     f"{r.folds}/{planned} folds, {margin}{state}")
+        if r.margin != r.margin:
+            margin = "no runner-up"
+        else:
+            test = ("" if r.test_p != r.test_p else
+                    f"; corrected resampled t over {r.test_folds} shared folds: p = {r.test_p:.3g}")
+            margin = f"margin {r.margin:.4f} over {r.runner_up_name}{test}"
+        lines.append(f"{r.dataset}: {r.name} {r.metric} {r.mean:.4f} ± {sd}, {r.folds}/{planned} folds, "
+                     f"{margin}{state}")
+    if any(not c for c, n in zip(frame["complete"], frame["folds"]) if n):
+        lines.append("[incomplete]: the winner has fewer finished folds than planned (the sweep is running or jobs failed)")
     return "\n".join(lines) + "\n"
 
 
@@ -142,7 +186,8 @@ def cmd_table(args: argparse.Namespace) -> int:
     res = _load(args)
     fmt = "json" if args.json else args.format
     _emit(args, report.table(res, args.metric, fmt=fmt, sd=args.sd, pivot=args.pivot, where=args.where,
-                             decimals=args.decimals, higher=args.higher))
+                             decimals=args.decimals, higher=args.higher, caption=args.caption, label=args.label,
+                             legend=args.legend))
     return 0
 
 
@@ -151,7 +196,8 @@ def cmd_compare(args: argparse.Namespace) -> int:
 
     res = _load(args)
     comp = report.compare(res, args.config_a, args.config_b, args.metric, zero_method=args.zero_method,
-                          method=args.method, higher=args.higher)
+                          method=args.method, higher=args.higher, partial=args.partial, alpha=args.alpha,
+                          rope=args.rope)
     _emit(args, _dumps(comp.to_dict()) if args.json else comp.to_text())
     return 0
 
@@ -160,7 +206,8 @@ def _rank_report(args: argparse.Namespace, res):
     from sweep import report
 
     return report.rank(res, args.metric, where=args.where, control=args.control, posthoc=args.posthoc,
-                       alpha=args.alpha, tie_correction=args.tie_correction, higher=args.higher)
+                       alpha=args.alpha, tie_correction=args.tie_correction, higher=args.higher,
+                       partial=args.partial)
 
 
 def cmd_rank(args: argparse.Namespace) -> int:
@@ -176,9 +223,27 @@ def cmd_plot(args: argparse.Namespace) -> int:
     if args.kind == "ranks":
         report.plot_ranks(_rank_report(args, res), args.out, limit=args.limit)
     else:
-        report.plot_heatmap(res, args.out, args.metric, where=args.where, pivot=args.pivot)
+        report.plot_heatmap(res, args.out, args.metric, where=args.where, pivot=args.pivot, higher=args.higher,
+                            relative=args.relative)
     if args.json:
         sys.stdout.write(_dumps({"kind": args.kind, "out": str(args.out), "metric": args.metric}))
+    else:
+        sys.stdout.write(f"wrote {args.out}\n")
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    from sweep.results import load_sweep_results
+    from sweep.study_report import build_report
+
+    res = load_sweep_results(args.spec, metrics=[args.metric], details=True)
+    html = build_report(res, args.metric, higher=args.higher, alpha=args.alpha, rope=args.rope,
+                        partial=args.partial, where=args.where, limit=args.limit)
+    from sweep.report import write_text_atomic
+
+    write_text_atomic(args.out, html)
+    if args.json:
+        sys.stdout.write(_dumps({"out": str(args.out), "metric": args.metric, "bytes": len(html.encode())}))
     else:
         sys.stdout.write(f"wrote {args.out}\n")
     return 0

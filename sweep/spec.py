@@ -24,15 +24,27 @@
     grid = { reasoning = ["additive", "choquet"], measure = ["power", "sugeno_lambda"] }
     exclude = [ { reasoning = "additive", measure = "sugeno_lambda" } ]  # combinations to skip
     applies = { measure = { reasoning = ["choquet"] } }  # measure varies only where reasoning is choquet
+    label = "FRM {reasoning} {measure}"   # optional: how reports name this block's configurations
+    names = [ { name = "WR", reasoning = "winning_rule" } ]  # optional: names of single configurations
 
 Everything is checked against the workers' parameter declarations before
-anything runs; nothing else in foldsweep parses a spec.
+anything runs; nothing else in foldsweep parses a spec. Names (the sweep's,
+datasets', model blocks', workers') are 1 to :data:`NAME_LIMIT` characters on
+every backend (the tracker's columns); a spec plans at most
+:data:`MAX_CONFIGURATIONS` configurations and :data:`MAX_JOBS` jobs, counted
+from the grids before their exclude rules (split a larger sweep into several
+specs on one store: they share the jobs they have in common).
+
+A ``worker = "package.module:attribute"`` names any importable module:
+importing it to read its parameters runs its code, with the user's rights.
 """
 
 from __future__ import annotations
 
 import difflib
 import hashlib
+import math
+import re
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -43,7 +55,21 @@ from sweep.errors import SpecError
 TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "memory_limit", "folds", "dataset",
             "model")
 FOLD_KEYS = ("k", "repeats", "seed")
-MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies")
+MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies", "label", "names")
+
+#: longest sweep, dataset, model block and worker name: the tracker's String(200) columns
+NAME_LIMIT = 200
+#: longest worker version (the tracker's String(64) column)
+VERSION_LIMIT = 64
+#: the largest seed numpy's generators take
+MAX_SEED = 2**32 - 1
+#: a year: the longest time_limit (a timer's wait must stay finite)
+MAX_TIME_LIMIT = 365 * 24 * 3600.0
+MAX_ATTEMPTS = 1000
+#: configurations of one spec, counted before exclude rules (each is held in memory while planning)
+MAX_CONFIGURATIONS = 100_000
+#: jobs of one spec (configurations x datasets x repeats x folds), counted before exclude rules
+MAX_JOBS = 2_000_000
 
 
 @dataclass(frozen=True)
@@ -70,6 +96,10 @@ class ModelBlock:
     grid: Mapping[str, tuple[Any, ...]]
     exclude: tuple[Mapping[str, tuple[Any, ...]], ...]
     applies: Mapping[str, Mapping[str, tuple[Any, ...]]]
+    #: the block's ``label`` template for readable configuration names (sweep.naming), None: derived
+    name_template: str | None = None
+    #: the block's ``names``: (name, rule) pairs, the first matching rule names a configuration
+    names: tuple[tuple[str, Mapping[str, tuple[Any, ...]]], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -121,8 +151,8 @@ def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:
     """Validate an already-parsed TOML document as a spec."""
     where = str(path)
     _check_keys(doc, TOP_KEYS, where, "")
-    name = _typed(doc.get("name", path.stem), str, where, "name", "a string")
-    return Spec(
+    name = _name(doc.get("name", path.stem), where, "name")
+    spec = Spec(
         path=path,
         name=name,
         store_url=_store_url(doc.get("store"), path),
@@ -130,10 +160,12 @@ def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:
         datasets=_datasets(doc.get("dataset"), where),
         models=_models(doc.get("model"), where),
         time_limit=_time_limit(doc.get("time_limit"), where),
-        max_attempts=_int_at_least(doc.get("max_attempts", 3), 1, where, "max_attempts"),
+        max_attempts=_int_between(doc.get("max_attempts", 3), 1, MAX_ATTEMPTS, where, "max_attempts"),
         memory_limit=_memory_limit(doc.get("memory_limit"), where),
         digest=digest,
     )
+    _check_size(spec, where)
+    return spec
 
 
 def nearest(name: str, valid: Any) -> str:
@@ -157,6 +189,21 @@ def _typed(value: Any, kind: type, where: str, key: str, words: str) -> Any:
     return value
 
 
+def _name(value: Any, where: str, key: str) -> str:
+    """A name stored in the tracker: a non-empty string of at most NAME_LIMIT characters."""
+    if not isinstance(value, str) or not value.strip() or len(value) > NAME_LIMIT:
+        got = f"{len(value)} characters" if isinstance(value, str) and value.strip() else repr(value)
+        raise SpecError(f"{where}: {key} must be a non-empty string of at most {NAME_LIMIT} characters, got {got}")
+    return value
+
+
+def _int_between(value: Any, low: int, high: int, where: str, key: str) -> int:
+    _typed(value, int, where, key, f"an integer from {low} to {high}")
+    if not low <= value <= high:
+        raise SpecError(f"{where}: {key} must be an integer from {low} to {high}, got {value!r}")
+    return int(value)
+
+
 def _int_at_least(value: Any, low: int, where: str, key: str) -> int:
     _typed(value, int, where, key, f"an integer >= {low}")
     if value < low:
@@ -166,18 +213,24 @@ def _int_at_least(value: Any, low: int, where: str, key: str) -> int:
 
 def _store_url(value: Any, path: Path) -> str:
     if value is None:
-        return f"sqlite:///{path.resolve().with_suffix('.sqlite')}"
+        return f"sqlite:///{_url_path(path.resolve().with_suffix('.sqlite'))}"
     _typed(value, str, str(path), "store", "a path or an SQLAlchemy URL")
     if "://" in value:
         return value
-    return f"sqlite:///{(path.resolve().parent / value).resolve()}"
+    return f"sqlite:///{_url_path((path.resolve().parent / value).resolve())}"
+
+
+def _url_path(path: Path) -> str:
+    """A file path as the path part of a URL: "%", "?" and "#" of a folder's name stay part of the path."""
+    return str(path).replace("%", "%25").replace("?", "%3F").replace("#", "%23")
 
 
 def _time_limit(value: Any, where: str) -> float | None:
     if value is None:
         return None
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or value <= 0:
-        raise SpecError(f"{where}: time_limit must be a number of seconds > 0, got {value!r}")
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value <= MAX_TIME_LIMIT:
+        raise SpecError(f"{where}: time_limit must be a number of seconds > 0 and at most {MAX_TIME_LIMIT:.0f} "
+                        f"(a year), got {value!r}")
     return float(value)
 
 
@@ -191,12 +244,27 @@ def _memory_limit(value: Any, where: str) -> str | None:
     return value.replace(" ", "")
 
 
+def _check_size(spec: Spec, where: str) -> None:
+    """Refuse at once a spec too large to plan (before any grid is expanded)."""
+    configurations = sum(math.prod(len(v) for v in m.grid.values()) for m in spec.models)
+    if configurations > MAX_CONFIGURATIONS:
+        raise SpecError(f"{where}: the grids make {configurations:,} configurations (before exclude rules); the "
+                        f"limit is {MAX_CONFIGURATIONS:,} per spec; split the grid over several specs that share "
+                        "one store")
+    jobs = configurations * len(spec.datasets) * spec.folds.repeats * spec.folds.k
+    if jobs > MAX_JOBS:
+        raise SpecError(f"{where}: the spec plans {jobs:,} jobs ({configurations:,} configurations x "
+                        f"{len(spec.datasets)} datasets x {spec.folds.repeats} repeats x {spec.folds.k} folds, "
+                        f"before exclude rules); the limit is {MAX_JOBS:,} per spec; split it over several specs "
+                        "that share one store")
+
+
 def _folds(table: Any, where: str) -> FoldScheme:
     _check_keys(table, FOLD_KEYS, where, "folds.")
     return FoldScheme(
         k=_int_at_least(table.get("k", 5), 2, where, "folds.k"),
         repeats=_int_at_least(table.get("repeats", 1), 1, where, "folds.repeats"),
-        seed=_int_at_least(table.get("seed", 0), 0, where, "folds.seed"),
+        seed=_int_between(table.get("seed", 0), 0, MAX_SEED, where, "folds.seed"),
     )
 
 
@@ -210,8 +278,9 @@ def _datasets(entries: Any, where: str) -> tuple[Mapping[str, Any], ...]:
     seen: set[str] = set()
     for i, entry in enumerate(entries):
         label = f"{where}: dataset[{i}]"
-        if not isinstance(entry, Mapping) or not isinstance(entry.get("name"), str) or not entry["name"]:
+        if not isinstance(entry, Mapping) or not isinstance(entry.get("name"), str) or not entry["name"].strip():
             raise SpecError(f"{label}: every dataset needs a name (a non-empty string)")
+        _name(entry["name"], label, "name")
         if entry["name"] in seen:
             raise SpecError(f"{label}: dataset name {entry['name']!r} is used twice")
         seen.add(entry["name"])
@@ -238,11 +307,21 @@ def _model(block: Any, where: str) -> ModelBlock:
     _check_keys(block, MODEL_KEYS, where, "")
     if "worker" not in block:
         raise SpecError(f"{where}: missing key 'worker' (the kind of fold job, e.g. 'fuzzy_rules')")
-    name = _typed(block["worker"], str, where, "worker", "a worker name")
+    name = _name(block["worker"], where, "worker")
+    if ":" in name and not re.fullmatch(r"[A-Za-z_]\w*(\.[A-Za-z_]\w*)*:[A-Za-z_]\w*", name):
+        raise SpecError(f"{where}: worker {name!r} is not of the form \"package.module:attribute\" "
+                        "(dotted Python names, no relative import)")
     try:
-        declared = get_worker(name).params
+        worker = get_worker(name)
+        declared = worker.params
     except KeyError as exc:
         raise SpecError(f"{where}: worker: {exc.args[0]}") from None
+    except Exception as exc:  # noqa: BLE001 - importing a plug-in runs its code: whatever it raises
+        detail = " ".join(f"{type(exc).__name__}: {exc}".split())[:200]
+        raise SpecError(f"{where}: worker {name!r}: importing its module failed ({detail})") from None
+    if not isinstance(worker.version, str) or not 0 < len(worker.version) <= VERSION_LIMIT:
+        raise SpecError(f"{where}: worker {name!r} declares version {worker.version!r}; a worker version is a "
+                        f"string of 1 to {VERSION_LIMIT} characters (the tracker's column)")
     where = f"{where} {block.get('name', name)!r}"
     fixed = _table(block.get("fixed", {}), where, "fixed")
     grid = _table(block.get("grid", {}), where, "grid")
@@ -251,7 +330,7 @@ def _model(block: Any, where: str) -> ModelBlock:
     for key in fixed_checked.keys() & grid_checked.keys():
         raise SpecError(f"{where}: {key!r} is both in fixed and in grid; keep it in one of them")
     return ModelBlock(
-        label=_typed(block.get("name", name), str, where, "name", "a string"),
+        label=_name(block.get("name", name), where, "name"),
         worker=name,
         fixed=fixed_checked,
         grid=grid_checked,
@@ -259,7 +338,38 @@ def _model(block: Any, where: str) -> ModelBlock:
                       for i, r in enumerate(_list(block.get("exclude", []), where, "exclude"))),
         applies={k: _rule(declared, name, cond, where, f"applies.{k}", target=k)
                  for k, cond in _table(block.get("applies", {}), where, "applies").items()},
+        name_template=_name_template(block.get("label"), declared, where),
+        names=tuple(_named_rule(declared, name, entry, where, f"names[{i}]")
+                    for i, entry in enumerate(_list(block.get("names", []), where, "names"))),
     )
+
+
+def _name_template(value: Any, declared: Mapping[str, Any], where: str) -> str | None:
+    """A ``label`` template: text with {parameter} fields naming the worker's parameters."""
+    import string
+
+    if value is None:
+        return None
+    _typed(value, str, where, "label", "a string such as \"FRM {reasoning}\"")
+    try:
+        fields = [f for _, f, spec, conv in string.Formatter().parse(value) if f is not None]
+    except ValueError as exc:
+        raise SpecError(f"{where}: label {value!r} is not a valid template ({exc}); "
+                        "write parameters as {name}, braces as {{ }}") from None
+    for f in fields:
+        if f not in declared:
+            raise SpecError(f"{where}: label: {{{f}}} is not a parameter{nearest(f, declared)}; "
+                            f"parameters: {', '.join(sorted(declared))}")
+    return value
+
+
+def _named_rule(declared: Mapping[str, Any], worker: str, entry: Any, where: str,
+                at: str) -> tuple[str, Mapping[str, tuple[Any, ...]]]:
+    if not isinstance(entry, Mapping) or not isinstance(entry.get("name"), str) or not entry["name"].strip():
+        raise SpecError(f"{where}: {at} must be a table with a non-empty name and parameter = value pairs, "
+                        "e.g. { name = \"WR\", reasoning = \"winning_rule\" }")
+    rule = {k: v for k, v in entry.items() if k != "name"}
+    return entry["name"].strip(), (_rule(declared, worker, rule, where, at) if rule else {})
 
 
 def _table(value: Any, where: str, key: str) -> Mapping[str, Any]:

@@ -15,6 +15,8 @@ def atomic_write(path: str | Path, write: Callable[[Any], None], *, binary: bool
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
     try:
+        # mkstemp creates the file 0600; a written file gets what any new file would: 0666 minus the umask
+        os.fchmod(fd, 0o666 & ~_umask())
         with os.fdopen(fd, "wb" if binary else "w") as handle:
             write(handle)
         os.replace(tmp, path)
@@ -22,6 +24,12 @@ def atomic_write(path: str | Path, write: Callable[[Any], None], *, binary: bool
         if os.path.exists(tmp):
             os.unlink(tmp)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)  # the only way to read it; set straight back (the process is single-threaded here)
+    os.umask(mask)
+    return mask
 
 
 def write_frame(frame: Any, fmt: str, out: str | None) -> None:

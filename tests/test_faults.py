@@ -84,8 +84,12 @@ def ok(proc: Any) -> Any:
 
 
 def run_json(spec: Path, *extra: str, env: dict[str, str] | None = None) -> dict[str, Any]:
-    proc = ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra, env=env, timeout=240))
-    return json.loads(proc.stdout.strip().splitlines()[-1])
+    proc = run_foldsweep("run", spec, "--json", "--progress", "none", *extra, env=env, timeout=240)
+    assert proc.returncode in (0, 1), f"exit {proc.returncode}\nstdout:\n{proc.stdout}\nstderr:\n{proc.stderr}"
+    summary = json.loads(proc.stdout.strip().splitlines()[-1])
+    # sweep.cli: exit code 1 when jobs of the sweep are failed, 0 when none is
+    assert proc.returncode == (1 if summary["failed"] else 0), (proc.returncode, summary)
+    return summary
 
 
 def query(db: Path, sql: str) -> list[tuple[Any, ...]]:

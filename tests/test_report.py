@@ -167,11 +167,11 @@ def test_select_by_id_prefix_and_filter(sweep_results):
 @pytest.mark.parametrize(
     "selector, message",
     [
-        ("zz", "no configuration has id 'zz'"),
+        ("zz", "no configuration has the name or id 'zz'"),
         ("worker=svm", "no configuration matches"),
         ("max_dept=3", "did you mean 'max_depth'"),
         ("worker=tree", "matches 3 configurations"),
-        ("max_depth", "no configuration has id"),
+        ("max_depth", "no configuration has the name or id"),
         ("t", "matches 3 configurations"),
     ],
 )
@@ -242,7 +242,9 @@ def test_latex_escape():
 
 @pytest.mark.skipif(shutil.which("pdflatex") is None, reason="pdflatex is not installed")
 def test_table_latex_compiles(sweep_results, tmp_path):
-    doc = "\\documentclass{article}\n\\begin{document}\n" + _latex_table(sweep_results) + "\\end{document}\n"
+    # issue 12: compiles with a plain article preamble plus booktabs
+    doc = ("\\documentclass{article}\n\\usepackage{booktabs}\n\\begin{document}\n" + _latex_table(sweep_results)
+           + "\\end{document}\n")
     (tmp_path / "t.tex").write_text(doc)
     run = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "t.tex"], cwd=tmp_path,
                          capture_output=True, timeout=120)
@@ -267,8 +269,8 @@ def test_compare_equals_scipy(sweep_results):
 def test_compare_excludes_and_names_missing_datasets(sweep_results):
     res = _partial(sweep_results, lambda f: (f["dataset"] == "wine") & (f["config_id"] == "k7"))
     comp = report.compare(res, "tfull", "k7")
-    assert comp.excluded == ["wine"] and "wine" not in comp.datasets
-    assert "excluded (missing cells): wine" in comp.to_text()
+    assert comp.excluded == [{"dataset": "wine", "reason": "k7 has no results"}] and "wine" not in comp.datasets
+    assert "  wine: k7 has no results" in comp.to_text()
     with pytest.raises(SelectionError, match="same configuration"):
         report.compare(res, "tfull", "worker=tree,max_depth=none")
 
@@ -353,8 +355,8 @@ def test_cli_best_json(cli, capsys, sweep_results):
     assert cli("best", "sweeps/test.toml", "--json") == 0
     rows = json.loads(capsys.readouterr().out)
     assert {r["dataset"] for r in rows} == set(sweep_results.frame["dataset"])
-    keys = {"dataset", "config_id", "worker", "params", "mean", "sd", "folds", "planned", "complete",
-            "runner_up", "margin", "metric"}
+    keys = {"dataset", "config_id", "name", "worker", "params", "mean", "sd", "folds", "planned", "complete",
+            "runner_up", "runner_up_name", "margin", "test_p", "test_folds", "metric"}
     assert all(set(r) == keys for r in rows)
     means = _groupby_means(sweep_results)
     for r in rows:
@@ -441,6 +443,10 @@ def test_end_to_end_reports_on_a_real_sweep(tmp_path):
     table = run_foldsweep("table", spec, "--format", "csv")
     assert table.returncode == 0, table.stderr
     out = pd.read_csv(StringIO(table.stdout), index_col=0)
+    # the table's columns are the configurations' readable names (foldsweep configs maps them to ids)
+    names = {r["id"]: r["name"] for r in json.loads(run_foldsweep("configs", spec, "--json").stdout)}
+    assert names[means.columns[0]] in out.columns
+    means = means.rename(columns=names)
     np.testing.assert_allclose(out.loc[means.index, means.columns].to_numpy(), means.to_numpy(), rtol=1e-9)
 
     best = run_foldsweep("best", spec, "--json")

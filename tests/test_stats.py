@@ -278,3 +278,101 @@ def test_bad_input_raises():
         stats.signed_rank([1.0, 2.0], [0.0, 1.0], zero_method="nope")
     with pytest.raises(ValueError, match="k\\(k-1\\)/2"):
         stats.shaffer([0.1, 0.2], 3)
+
+
+# ----------------------------------------------------- zeros, small N, folds, Bayesian
+
+
+@pytest.mark.parametrize("seed, zeros", [(1, 8), (2, 8), (3, 4), (4, 6)])
+def test_signed_rank_demsar_zeros_equal_scipy_zsplit(seed, zeros):
+    # Reference implementation: scipy.stats.wilcoxon(zero_method="zsplit", method="approx"), which splits
+    # the zeros' ranks as Demšar (2006, Sec. 3.1.3) does and keeps them in the variance. N = 13 with 8 zeros
+    # is the case of issue 12 (the zeros' ranks used to be dropped from the variance). Even zero counts:
+    # Demšar drops one zero of an odd count, scipy does not.
+    rng = np.random.default_rng(seed)
+    d = np.concatenate([np.zeros(zeros), rng.choice([-0.02, -0.01, 0.01, 0.02, 0.03], 13 - zeros)])  # with ties
+    a, b = 0.8 + d, np.full(13, 0.8)
+    ours = stats.signed_rank(a, b, method="approx")
+    ref = sst.wilcoxon(np.round(a - b, 12), zero_method="zsplit", method="approx")
+    assert ours.statistic == pytest.approx(ref.statistic)
+    assert ours.p_value == pytest.approx(ref.pvalue, rel=1e-10)
+
+
+def test_demsar_zeros_variance_counts_every_rank():
+    # Demšar (2006), Sec. 3.1.3: z = (T - N(N+1)/4) / sd with all N datasets ranked, the zeros' ranks
+    # split evenly; sd from the ranks actually assigned, sqrt(sum r^2 / 4) (the tie-corrected form of
+    # sqrt(N(N+1)(2N+1)/24), common practice). 8 zeros (tied: rank 4.5 each) and 5 positive differences
+    # (ranks 9-13): R- = 18, sum r^2 = 8 * 4.5^2 + 615 = 777, z = (18 - 45.5) / sqrt(777 / 4), by hand.
+    a = np.array([0.0] * 8 + [1, 2, 3, 4, 5], dtype=float)
+    r = stats.signed_rank(a, np.zeros(13), method="approx")
+    z = (18 - 13 * 14 / 4) / np.sqrt(777 / 4)
+    assert r.statistic == 18 and r.p_value == pytest.approx(2 * sst.norm.sf(abs(z)))
+
+
+def test_min_signed_rank_p_is_the_exact_extreme():
+    # common practice: all N differences of one sign is the most extreme of the 2^N equally likely
+    # sign assignments, two-sided p = 2 / 2^N; checked against scipy's exact Wilcoxon.
+    for n in (3, 5, 6):
+        p = sst.wilcoxon(np.arange(1.0, n + 1), method="exact").pvalue
+        assert stats.min_signed_rank_p(n) == pytest.approx(p)
+    assert stats.small_n_warnings(3, 0.05) and "never be significant" in stats.small_n_warnings(3, 0.05)[0]
+    # 2/2^6 = 0.03125 <= 0.05: six datasets can reach alpha = 0.05, five cannot (2/2^5 = 0.0625).
+    assert not stats.small_n_warnings(6, 0.05) and stats.small_n_warnings(5, 0.05)
+    assert any("normal approximation" in w for w in stats.small_n_warnings(10, 0.05, method="approx"))
+
+
+def test_corrected_resampled_t_against_scipy_paired_t():
+    # Nadeau & Bengio (Machine Learning 52, 2003), Eq. for the corrected resampled t: the variance of the
+    # paired t-test, var/J, becomes var * (1/J + n_test/n_train). So t_corrected = t_paired *
+    # sqrt((1/J) / (1/J + ratio)), with scipy.stats.ttest_rel as the reference paired t.
+    rng = np.random.default_rng(0)
+    a = rng.uniform(0.7, 0.9, 10)
+    b = a - rng.normal(0.02, 0.02, 10)
+    r = stats.corrected_resampled_t(a, b, test_train_ratio=1 / 9)
+    paired = sst.ttest_rel(a, b)
+    expected_t = paired.statistic * np.sqrt((1 / 10) / (1 / 10 + 1 / 9))
+    assert r.df == 9 and r.statistic == pytest.approx(expected_t)
+    assert r.p_value == pytest.approx(2 * sst.t.sf(abs(expected_t), 9))
+    assert r.p_value > paired.pvalue  # the correction only ever widens
+
+
+def test_corrected_resampled_t_matches_baycomp_variance():
+    # Reference implementation: baycomp's CorrelatedTTest.compute_statistics applies the same Nadeau-Bengio
+    # correction (1/n + 1/(k - 1)) to the variance of y - x, for 2 runs of 5-fold.
+    baycomp = pytest.importorskip("baycomp")
+    rng = np.random.default_rng(5)
+    x, y = rng.uniform(0.6, 0.8, 10), rng.uniform(0.6, 0.8, 10)
+    mean, var, df = baycomp.CorrelatedTTest.compute_statistics(x, y, runs=2)
+    r = stats.corrected_resampled_t(y, x, test_train_ratio=1 / 4)
+    assert r.df == df and r.statistic == pytest.approx(mean / np.sqrt(var))
+
+
+@pytest.mark.parametrize("rope", [0.0, 0.01])
+def test_bayes_signed_rank_equals_baycomp(rope):
+    # Reference implementation: baycomp.SignedRankTest (Benavoli et al., JMLR 18, 2017), same seed, same draws.
+    # baycomp's "left" is the first argument better (differences y - x below -rope).
+    baycomp = pytest.importorskip("baycomp")
+    rng = np.random.default_rng(0)
+    x = rng.uniform(0.7, 0.9, 12)
+    y = x + rng.normal(0.01, 0.02, 12)
+    ours = stats.bayes_signed_rank(x, y, rope=rope, random_state=3)
+    ref = baycomp.SignedRankTest.probs(x, y, rope=rope, random_state=3)
+    if rope:
+        assert (ours.p_a_better, ours.p_equivalent, ours.p_b_better) == pytest.approx(ref, abs=1e-12)
+    else:
+        assert (ours.p_a_better, ours.p_b_better) == pytest.approx(ref, abs=1e-12)
+    # lower-is-better flips the sides
+    flipped = stats.bayes_signed_rank(-x, -y, rope=rope, random_state=3, higher_is_better=False)
+    assert flipped.p_a_better == pytest.approx(ours.p_a_better)
+
+
+def test_bayes_correlated_t_equals_baycomp():
+    # Reference implementation: baycomp.CorrelatedTTest (Benavoli et al., JMLR 18, 2017, Sec. 3), one run of
+    # 10-fold: rho = 1/10, rho/(1-rho) = 1/9.
+    baycomp = pytest.importorskip("baycomp")
+    rng = np.random.default_rng(2)
+    a = rng.uniform(0.7, 0.9, 10)
+    b = a + rng.normal(0.01, 0.02, 10)
+    ours = stats.bayes_correlated_t(a, b, rope=0.01, test_train_ratio=1 / 9)
+    ref = baycomp.CorrelatedTTest.probs(a, b, rope=0.01, runs=1)
+    assert (ours.p_a_better, ours.p_equivalent, ours.p_b_better) == pytest.approx(ref, rel=1e-10)

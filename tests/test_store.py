@@ -3,13 +3,16 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
+import shutil
 import socket
 import sqlite3
 import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -151,7 +154,7 @@ def test_commit_by_an_owner_that_does_not_hold_the_job_is_dropped(store: Store) 
 def test_a_failing_commit_writes_neither_result_nor_state(store: Store) -> None:
     jobs = store.claim(SWEEP, "host:1:a", 2, 60, 3)
     broken = JobResult(key=jobs[1].key, ok=True, accuracy=None)  # NOT NULL metrics: the insert fails
-    with pytest.raises(sa.exc.IntegrityError):
+    with pytest.raises(sa.exc.IntegrityError):  # a bug, not bad input: not turned into a one-line StoreError
         store.commit_results("host:1:a", [ok_result(jobs[0].key), broken])
     assert result_rows(store) == []
     assert store.counts(SWEEP)["running"] == 2 and store.counts(SWEEP)["done"] == 0
@@ -234,3 +237,229 @@ def test_folds_round_trip_and_missing_classes_are_reported(store: Store) -> None
     np.testing.assert_array_equal(loaded[(0, 0)], [0, 3, 5])
     np.testing.assert_array_equal(loaded[(0, 1)], [1, 2, 4])
     assert store.fold_warnings(SCHEME, "fp0") == [(0, 1, [2])]
+
+
+# ---- one store, several sweeps: a job is shared by every sweep that plans it --------------------
+
+def test_a_job_planned_by_two_sweeps_is_stored_once_and_counted_by_both(store: Store) -> None:
+    assert store.sync_jobs("other", SCHEME, planned(8)) == 2  # 6 of its 8 jobs are store-test's already
+    (job,) = store.claim("other", "host:1:b", 1, 60, 3)
+    store.commit_results("host:1:b", [ok_result(job.key)])
+    assert store.counts(SWEEP)["done"] == 1 and store.counts("other")["done"] == 1
+    assert len(store.claim(SWEEP, "host:1:a", 10, 60, 3)) == 5  # never a job the other one holds or did
+    assert len(store.claim("other", "host:1:b", 10, 60, 3)) == 2
+
+
+def test_a_smaller_plan_of_one_sweep_leaves_the_others_counts_alone(store: Store) -> None:
+    store.sync_jobs("other", SCHEME, planned(6))
+    store.sync_jobs(SWEEP, SCHEME, planned(2))
+    assert sum(store.counts(SWEEP).values()) == 2 and sum(store.counts("other").values()) == 6
+    assert len(store.job_states([j.key for j in planned(6)])) == 6
+
+
+def test_claimed_jobs_carry_the_claiming_sweeps_name_for_the_data(store: Store) -> None:
+    renamed = [j._replace(dataset="flowers") for j in planned(6)]
+    store.sync_jobs("other", SCHEME, renamed)
+    assert {c.dataset for c in store.claim("other", "host:1:b", 6, 60, 3)} == {"flowers"}
+    assert store.sweep_fingerprints("other") == {"flowers": {"fp0"}}
+    assert store.sweep_fingerprints(SWEEP) == {"iris": {"fp0"}}
+
+
+# ---- reads: no write lock, read-only stores --------------------------------------------------
+
+def test_a_read_does_not_wait_for_a_writer(store: Store) -> None:
+    writer = sqlite3.connect(store.url[len("sqlite:///"):], isolation_level=None)
+    try:
+        writer.execute("BEGIN IMMEDIATE")  # a driver in the middle of a commit
+        writer.execute("UPDATE jobs SET attempts = 1")
+        started = time.monotonic()
+        reader = Store.open(store.url, create=False)
+        try:
+            assert reader.counts(SWEEP)["pending"] == 6
+        finally:
+            reader.close()
+        assert time.monotonic() - started < 5  # the busy timeout is 60 s: a read that queued would show
+    finally:
+        writer.execute("ROLLBACK")
+        writer.close()
+
+
+def test_a_store_opened_for_reading_is_opened_read_only(store: Store) -> None:
+    reader = Store.open(store.url, create=False)
+    try:
+        with pytest.raises(StoreError, match="cannot be written.*nothing committed was lost"):
+            reader.sync_jobs(SWEEP, SCHEME, planned(7))
+    finally:
+        reader.close()
+
+
+def test_durability_is_synchronous_full(store: Store) -> None:
+    # common practice (sqlite.org/pragma.html#pragma_synchronous): in WAL mode, NORMAL may lose the
+    # transactions since the last checkpoint on a power cut or OS crash; FULL syncs the log at each commit
+    with store.engine.connect() as conn:
+        assert conn.exec_driver_sql("PRAGMA synchronous").scalar() == 2  # 2 = FULL
+        assert conn.exec_driver_sql("PRAGMA journal_mode").scalar() == "wal"
+
+
+# ---- end to end: two specs on one store, a grid changed under one name, a dataset renamed ---------
+
+SHARED = """
+name = "a"
+store = "shared.sqlite"
+[folds]
+k = 3
+seed = 4
+[[dataset]]
+name = "iris"
+builtin = "iris"
+[[dataset]]
+name = "wine"
+builtin = "wine"
+[[model]]
+worker = "decision_tree"
+grid = { max_depth = [1, 2, 3, 4, 5] }
+"""
+SHARED_JOBS = 2 * 5 * 3
+
+
+def _spec(folder: Path, name: str, text: str) -> Path:
+    path = folder / f"{name}.toml"
+    path.write_text(text)
+    return path
+
+
+def _json(*args: Any) -> Any:
+    from tests.conftest import run_foldsweep
+
+    proc = run_foldsweep(*args, "--json")
+    assert proc.returncode == 0 and not proc.stderr.strip(), proc.stderr  # no warning either
+    text = proc.stdout.strip()
+    return json.loads(text if args[0] != "run" else text.splitlines()[-1])  # run prints progress first
+
+
+def _status(spec: Path) -> dict[str, int]:
+    return {k: v for k, v in _json("status", spec).items() if k != "failures"}
+
+
+def _all_done(n: int) -> dict[str, int]:
+    return {"total": n, "done": n, "failed": 0, "pending": 0, "running": 0}
+
+
+@pytest.mark.slow
+def test_two_specs_differing_only_by_name_share_one_store(tmp_path: Path) -> None:
+    a = _spec(tmp_path, "a", SHARED)
+    b = _spec(tmp_path, "b", SHARED.replace('name = "a"', 'name = "b"'))
+    assert _json("run", a, "--workers", "1", "--progress", "none")["ran"] == SHARED_JOBS
+    summary = _json("run", b, "--workers", "1", "--progress", "none")
+    assert (summary["ran"], summary["new"], summary["done"], summary["pending"]) == (0, 0, SHARED_JOBS, 0)
+    assert _status(b) == _status(a) == _all_done(SHARED_JOBS)
+    best_a, best_b = _json("best", a), _json("best", b)
+    assert best_a == best_b and {r["folds"] for r in best_b} == {3}
+    db = tmp_path / "shared.sqlite"
+    with sqlite3.connect(db) as conn:  # one job and one result per cell, planned by both sweeps
+        assert conn.execute("SELECT count(*) FROM results").fetchone() == (SHARED_JOBS,)
+        assert conn.execute("SELECT sweep, count(*) FROM sweep_jobs GROUP BY sweep").fetchall() == [
+            ("a", SHARED_JOBS), ("b", SHARED_JOBS)]
+    conn.close()
+
+
+@pytest.mark.slow
+def test_a_grid_changed_under_one_name_keeps_the_first_grids_jobs_done(tmp_path: Path) -> None:
+    first = _spec(tmp_path, "first", SHARED)
+    second = _spec(tmp_path, "second", SHARED.replace("[1, 2, 3, 4, 5]", "[4, 5, 6]"))  # also name = "a"
+    _json("run", first, "--workers", "1", "--progress", "none")
+    assert _json("run", second, "--workers", "1", "--progress", "none")["ran"] == 2 * 1 * 3  # only depth 6
+    assert _status(first) == _all_done(SHARED_JOBS)  # depths 1-3 are no longer "a"'s plan, still done
+    assert _status(second) == _all_done(2 * 3 * 3)
+    table = _json("table", first)
+    assert len(table["columns"]) == 5 and len(table["rows"]) == 2, table  # every cell of the first grid
+    assert all(r["complete"] and r["folds"] == 3 for r in _json("best", first))
+    summary = _json("run", first, "--workers", "1", "--progress", "none")
+    assert (summary["ran"], summary["done"]) == (0, SHARED_JOBS)
+
+
+@pytest.mark.slow
+def test_a_dataset_renamed_in_the_spec_is_reported_under_its_new_name(tmp_path: Path) -> None:
+    spec = _spec(tmp_path, "a", SHARED)
+    _json("run", spec, "--workers", "1", "--progress", "none")
+    spec.write_text(SHARED.replace('name = "iris"', 'name = "flowers"'))
+    assert _json("run", spec, "--workers", "1", "--progress", "none")["ran"] == 0  # same content, same jobs
+    assert _status(spec) == _all_done(SHARED_JOBS)
+    best = _json("best", spec)  # _json: no RuntimeWarning or other line on stderr
+    assert sorted(r["dataset"] for r in best) == ["flowers", "wine"]
+    assert all(r["folds"] == 3 and r["complete"] for r in best), best
+    from tests.conftest import run_foldsweep
+
+    rows = run_foldsweep("results", spec, "--format", "json").stdout.splitlines()
+    assert {json.loads(r)["dataset"] for r in rows} == {"flowers", "wine"}
+    text = run_foldsweep("best", spec).stdout
+    assert "iris" not in text and "no finished jobs" not in text and "incomplete" not in text, text
+
+
+# ---- a read-only store is readable by status and every report ----------------------------------
+
+def _read_everything(spec: Path, out: Path) -> None:
+    """status, results, model and every report on ``spec``: each exits 0 with no line on stderr."""
+    from tests.conftest import run_foldsweep
+
+    rows = [json.loads(r) for r in run_foldsweep("results", spec, "--format", "json").stdout.splitlines()]
+    assert len(rows) == SHARED_JOBS
+    configs = sorted({r["config_id"] for r in rows})
+    commands = [["status"], ["results"], ["model", rows[0]["key"]], ["best"], ["table"],
+                ["compare", configs[0], configs[1]], ["rank"], ["plot", "--out", str(out)]]
+    for command in commands:
+        proc = run_foldsweep(command[0], spec, *command[1:])
+        if command[0] == "model":  # read, and found to be a decision tree's: no rule base to print
+            assert proc.returncode == 2 and "stores no model text" in proc.stderr, proc.stderr
+            continue
+        assert proc.returncode == 0 and not proc.stderr.strip(), (command, proc.stderr)
+    assert out.stat().st_size > 0
+
+
+@pytest.mark.slow
+def test_a_read_only_store_is_readable_by_status_and_every_report(tmp_path: Path) -> None:
+    src = tmp_path / "src"
+    src.mkdir()
+    spec = _spec(src, "a", SHARED)
+    _json("run", spec, "--workers", "2", "--progress", "none")
+    db = src / "shared.sqlite"
+    assert not (src / "shared.sqlite-wal").exists()
+    before = digest(db)
+    mounted = tmp_path / "ro"
+    mounted.mkdir()
+    shutil.copytree(src, tmp_path / "copy")
+    # a read-only bind mount: even root cannot write there (a file's mode 0444 does not stop root)
+    if subprocess.run(["mount", "--bind", "-o", "ro", str(tmp_path / "copy"), str(mounted)],
+                      capture_output=True).returncode != 0:
+        mounted = None
+    try:
+        if mounted is not None:
+            assert not os.access(mounted, os.W_OK)
+            _read_everything(mounted / "a.toml", tmp_path / "ranks-mounted.png")
+            assert digest(mounted / "shared.sqlite") == before
+            assert sorted(p.name for p in mounted.iterdir()) == ["a.toml", "shared.sqlite"]
+    finally:
+        if mounted is not None:
+            subprocess.run(["umount", "-l", str(mounted)], capture_output=True)
+    db.chmod(0o444)
+    src.chmod(0o555)
+    try:
+        _read_everything(spec, tmp_path / "ranks.png")
+    finally:
+        src.chmod(0o755)
+    assert digest(db) == before
+    if mounted is None:
+        pytest.skip("a read-only bind mount is not permitted here (needs CAP_SYS_ADMIN): checked mode 0444 only")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("folder", ["what?now", "100%25 sure#1"])
+def test_a_store_path_is_a_path_even_with_url_characters(tmp_path: Path, folder: str) -> None:
+    # "?", "%" and "#" in a folder's name are part of the path, not a URL's query, escape or fragment
+    home = tmp_path / folder
+    home.mkdir()
+    spec = _spec(home, "a", SHARED.replace("[1, 2, 3, 4, 5]", "[1]"))
+    assert _json("run", spec, "--workers", "1", "--progress", "none")["done"] == 2 * 3
+    assert sorted(p.name for p in home.iterdir()) == ["a.toml", "shared.sqlite"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == [folder]
+    assert _status(spec) == _all_done(2 * 3)
