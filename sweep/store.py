@@ -383,7 +383,7 @@ class Store:
                  .select_from(sweep_jobs_table.join(jobs_table, jobs_table.c.key == m.key))
                  .where(m.sweep == sweep, m.active).group_by(jobs_table.c.state))
         with self.reader.connect() as conn:
-            found: dict[str, int] = dict(conn.execute(query).tuples().all())
+            found: dict[str, int] = {str(s): int(n) for s, n in conn.execute(query).all()}
         return {state: int(found.get(state, 0)) for state in STATES}
 
     def requeue_stale(self, sweep: str, now: float | None = None) -> int:
