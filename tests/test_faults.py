@@ -417,9 +417,12 @@ def test_second_driver_in_another_pid_namespace_is_not_taken_for_dead(tmp_path: 
     planned = 30
     env = watch_env(tmp_path)
     args = ("run", spec, "--workers", "1", "--claim", "2", "--progress", "none", "--json")
+    outside = start_foldsweep(*args, env=env)
+    # the store made and the first job started (two drivers creating one new SQLite file at the same
+    # instant is another matter), then the second driver, in a PID namespace of its own
+    wait_for_lines(tmp_path / "started.log", 1, proc=outside)
     inside = subprocess.Popen(["unshare", "--pid", "--fork", "--mount-proc", *foldsweep_command(*args)],
                               env=subprocess_env(env), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    outside = start_foldsweep(*args, env=env)
     outs = [finish(outside), finish(inside)]
     summaries = [json.loads(o.strip().splitlines()[-1]) for o, _ in outs]
     counts = check_exactly_once(spec)
