@@ -197,7 +197,8 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def _describe_run(s: Any) -> str:
-    head = f"sweep {s.sweep!r}: {s.planned} jobs planned ({s.new} new), planning took {s.planning_seconds:.2f} s"
+    inner = f"{s.planned_inner} of them inner jobs of nested selection, " if s.planned_inner else ""
+    head = f"sweep {s.sweep!r}: {s.planned} jobs planned ({inner}{s.new} new), planning took {s.planning_seconds:.2f} s"
     if s.ran == 0 and s.pending == 0 and not s.interrupted:
         return f"{head}; nothing left to do: {s.done} done, {s.failed} failed"
     state = "interrupted" if s.interrupted else "finished"
@@ -216,30 +217,50 @@ def cmd_status(args: argparse.Namespace) -> int:
         store = open_store(inputs.spec, create=False)
     except NoStoreYet:
         store = None  # not run yet: everything is pending (and no file is created by asking)
+    states: dict[str, Any] = {}
     if store is not None:
         try:  # every job the spec plans, whichever sweep planned or ran it first
-            states = store.job_states([job.key for job in inputs.plan.jobs])
-            gone = store.held_by_gone([j.key for j in inputs.plan.jobs])
+            states = store.job_states([job.key for job in inputs.plan.all_jobs])
+            gone = store.held_by_gone([j.key for j in inputs.plan.all_jobs])
         finally:
             store.close()
-        for job in inputs.plan.jobs:
+        for job in inputs.plan.all_jobs:
             state, error, timed_out = states.get(job.key, ("pending", None, False))
-            counts["gone" if job.key in gone else state] += 1
+            if not job.scheme:  # an inner job (nested selection) is counted apart, below
+                counts["gone" if job.key in gone else state] += 1
             if state == "failed":
                 message = "timed out" if timed_out else _last_line(error)
                 failures[message] = failures.get(message, 0) + 1
     else:
         counts["pending"] = counts["total"]
+    nested = _nested_status(inputs.plan, states)
     if args.json:
-        print(json.dumps({**counts, "failures": failures}))
+        print(json.dumps({**counts, **nested, "failures": failures}))
         return 0
     print(f"sweep {inputs.spec.name!r}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
           f"{counts['running']} running, {counts['pending']} pending"
           + (f", {counts['gone']} held by a driver that is gone (pending again at the next run)"
              if counts["gone"] else ""))
+    if nested:
+        inner, (selected, total) = nested["inner"], nested["selections"].values()
+        print(f"  inner jobs (nested selection): {inner['done']}/{inner['total']} done, {inner['failed']} failed, "
+              f"{inner['running']} running, {inner['pending']} pending; {selected}/{total} outer folds "
+              "(dataset x model block x repeat x fold) have a selection")
     for message, n in sorted(failures.items(), key=lambda kv: -kv[1]):
         print(f"  {n} failed: {message}")
     return 0
+
+
+def _nested_status(plan: Any, states: dict[str, Any]) -> dict[str, Any]:
+    """``inner`` (inner jobs per state) and ``selections`` (outer folds with a selection / to select for),
+    or nothing for a sweep without nested selection."""
+    if not plan.inner_k:
+        return {}
+    from sweep.nested import inner_counts, selection_progress
+
+    state = {key: rest[0] for key, rest in states.items()}
+    selected, total = selection_progress(plan, {key for key, s in state.items() if s == "done"})
+    return {"inner": inner_counts(plan, state), "selections": {"done": selected, "total": total}}
 
 
 def _last_line(error: str | None) -> str:
@@ -253,7 +274,7 @@ def cmd_configs(args: argparse.Namespace) -> int:
 
     view, store = open_tracker(args.spec, store_needed=False)  # before a first run: everything pending
     try:
-        counts = store.cell_counts(view.spec.name) if store is not None else []
+        counts = store.cell_counts(view.spec.name, scheme=view.plan.scheme) if store is not None else []
     finally:
         if store is not None:
             store.close()
@@ -302,6 +323,13 @@ def cmd_failures(args: argparse.Namespace) -> int:
              if f["config_id"] in view.names else f["config_id"], "config_id": f["config_id"],
              "repeat": f["repeat"], "fold": f["fold"], "attempts": f["attempts"],
              "error": "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))} for f in failed]
+    if view.plan.inner_k:  # an inner job of nested selection: its outer fold, and which inner fold
+        from sweep.nested import split_number
+
+        inner = {j.key for j in view.plan.inner_jobs}
+        for r in rows:
+            if r["key"] in inner:
+                r["fold"], r["inner_fold"] = split_number(r["fold"], view.plan.inner_k)
     if args.json:
         print(json.dumps(rows, ensure_ascii=False))
         return 0
@@ -315,7 +343,8 @@ def cmd_failures(args: argparse.Namespace) -> int:
     for message, members in sorted(groups.items(), key=lambda kv: -len(kv[1])):
         print(f"{len(members)} x {message}")
         for r in members:
-            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}  "
+            inner_fold = f" inner fold {r['inner_fold']}" if "inner_fold" in r else ""
+            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}{inner_fold}  "
                   f"attempts {r['attempts']}  key {r['key']}")
     return 0
 
@@ -370,8 +399,8 @@ def cmd_model(args: argparse.Namespace) -> int:
 def _select_job(args: argparse.Namespace, inputs: Any) -> Any:
     """The planned job named by ``args``: a key prefix, or dataset + configuration + repeat + fold."""
     jobs = inputs.plan.jobs
-    if args.key is not None:
-        found = [j for j in jobs if j.key.startswith(args.key.lower())]
+    if args.key is not None:  # an inner job of nested selection too
+        found = [j for j in inputs.plan.all_jobs if j.key.startswith(args.key.lower())]
         what = f"key {args.key!r}"
     elif args.dataset is None or args.config is None:
         raise SelectionError(f"{args.spec}: name a job by its key, or by --dataset and --config "

@@ -63,6 +63,7 @@ from sweep.loop_core import (
     task_size,
     task_sizes,
 )
+from sweep.nested import JobRows, inner_progress
 from sweep.plan import Plan, make_plan
 from sweep.spec import Spec, load_spec
 from sweep.store import Claimed, Store, owner_id
@@ -111,6 +112,8 @@ class RunSummary:
     failed: int = 0
     pending: int = 0
     ran: int = 0
+    #: of ``planned``, the inner jobs of nested selection
+    planned_inner: int = 0
     requeued: int = 0
     interrupted: bool = False
     #: the signal that interrupted the run (SIGINT, SIGTERM, SIGHUP), if any
@@ -131,6 +134,10 @@ def load_inputs(spec_path: str | Path) -> Inputs:
         where = f"{spec.path}: dataset[{i}] {entry['name']!r}"
         data = cached_load(entry, spec.path.resolve().parent, where)
         check_feasible(data.y, data.classes, spec.folds, where)
+        if spec.selection is not None:
+            from sweep.nested import check_inner_feasible
+
+            check_inner_feasible(data.y, data.classes, spec.folds.k, spec.selection.inner_k, where)
         datasets[entry["name"]] = data
     workers = {m.worker: get_worker(m.worker) for m in spec.models}
     plan = make_plan(spec, {n: d.fingerprint for n, d in datasets.items()}, workers)
@@ -143,6 +150,7 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     import json
 
     from sweep.folds import compute_folds
+    from sweep.nested import record_inner_folds
 
     spec, plan = inputs.spec, inputs.plan
     _refuse_changed_data(store, inputs, accept_changed_data)
@@ -155,11 +163,12 @@ def sync_store(store: Store, inputs: Inputs, *, accept_changed_data: bool = Fals
     for data in inputs.datasets.values():
         if not store.has_folds(plan.scheme, data.fingerprint):
             store.record_folds(plan.scheme, data.fingerprint, compute_folds(data.y, spec.folds))
+        record_inner_folds(store, plan, data, spec.folds.seed)
         for repeat, fold, missing in store.fold_warnings(plan.scheme, data.fingerprint):
             names = ", ".join(repr(data.classes[c]) for c in missing)
             print(f"warning: dataset {data.name!r} repeat {repeat} fold {fold}: the training part lacks "
                   f"class {names}", file=out or sys.stderr)
-    return store.sync_jobs(spec.name, plan.scheme, plan.jobs)
+    return store.sync_jobs(spec.name, plan.scheme, plan.all_jobs)
 
 
 def _refuse_changed_data(store: Store, inputs: Inputs, accept: bool) -> None:
@@ -241,7 +250,8 @@ def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float
     store = open_store(inputs.spec)
     try:
         new = sync_store(store, inputs, accept_changed_data=options.accept_changed_data, out=out)
-        summary = RunSummary(inputs.spec.name, len(inputs.plan.jobs), new)
+        summary = RunSummary(inputs.spec.name, len(inputs.plan.all_jobs), new,
+                             planned_inner=len(inputs.plan.inner_jobs))
         summary.requeued = store.requeue_stale(inputs.spec.name)
         if options.retry_failed:
             summary.requeued += store.retry_failed(inputs.spec.name)
@@ -287,7 +297,8 @@ class _Loop:
                                       commit_results=COMMIT_EVERY_RESULTS))
         self.claims: dict[str, Claimed] = {}
         self.tasks: dict[Any, int] = {}  # future -> the core's task number
-        self.folds: dict[str, dict[tuple[int, int], Any]] = {}
+        self.configs = inputs.plan.by_config
+        self.rows = JobRows(store, inputs.plan, inputs.datasets)
         self.handles: dict[str, Any] = {}
         self.interrupted = False
         self.stopped = False
@@ -295,8 +306,9 @@ class _Loop:
     def run(self, counts: Mapping[str, int]) -> None:
         from sweep.progress import Progress
 
+        inner, self.inner_keys = inner_progress(self.store, self.inputs.plan, self.spec.name)
         self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
-                                 mode=self.options.progress, stream=self.out)
+                                 mode=self.options.progress, stream=self.out, inner=inner)
         self.signals.deferred = True  # from here a signal is an event of the loop
         try:
             events: deque[Event] = deque([Start(time.monotonic(), counts["pending"])])
@@ -365,7 +377,9 @@ class _Loop:
         elif isinstance(action, Commit):
             self.store.commit_results(self.owner, list(action.results), dict(action.give_up))
             ok = sum(r.ok for r in action.results)
-            self.progress.update(done=ok, failed=len(action.results) - ok + len(action.give_up))
+            inner = sum(r.key in self.inner_keys for r in action.results) + sum(k in self.inner_keys
+                                                                             for k, _ in action.give_up)
+            self.progress.update(done=ok, failed=len(action.results) - ok + len(action.give_up), inner=inner)
             self._drop([r.key for r in action.results] + [k for k, _ in action.give_up])
         elif isinstance(action, Release):
             self.store.release(self.owner, list(action.keys), count_attempt=action.count_attempt)
@@ -388,15 +402,15 @@ class _Loop:
 
         batch = [self.claims[k] for k in action.keys]
         fp = batch[0].fingerprint
-        if fp not in self.folds:
-            self.folds[fp] = self.store.load_folds(self.inputs.plan.scheme, fp)
+        if fp not in self.handles:
             self.handles[fp] = self.executor.share(self.inputs.datasets[batch[0].dataset])
         jobs = []
         for c in batch:
-            config = self.inputs.plan.by_config[c.config_id]
+            config = self.configs[c.config_id]
+            test, train = self.rows(c)
             jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
                             fingerprint=fp, repeat=c.repeat, fold=c.fold,
-                            test_index=self.folds[fp][(c.repeat, c.fold)], time_limit=self.spec.time_limit))
+                            test_index=test, time_limit=self.spec.time_limit, train_index=train))
         self.tasks[self.executor.submit(jobs, self.handles[fp])] = action.task
 
     def _abandon(self) -> None:

@@ -158,6 +158,8 @@ class Claimed:
     repeat: int
     fold: int
     attempts: int
+    #: the job's fold scheme (an inner job's differs from the plan's: sweep.nested)
+    scheme: str = ""
 
 
 def owner_id() -> str:
@@ -357,7 +359,7 @@ class Store:
             for chunk in _chunks(new, 5000):
                 _insert_new(conn, jobs_table, [
                     dict(key=j.key, sweep=sweep, dataset=j.dataset, fingerprint=j.fingerprint,
-                         config_id=j.config_id, scheme=scheme, repeat=j.repeat, fold=j.fold, state="pending",
+                         config_id=j.config_id, scheme=getattr(j, "scheme", "") or scheme, repeat=j.repeat, fold=j.fold, state="pending",
                          attempts=0, queued_at=now, timed_out=False) for j in chunk])
             for chunk in _chunks(joining, 5000):
                 _insert_new(conn, sweep_jobs_table, [dict(sweep=sweep, key=j.key, dataset=j.dataset, active=True)
@@ -376,12 +378,14 @@ class Store:
             found.update(conn.execute(sa.select(jobs_table.c.key).where(jobs_table.c.key.in_(chunk))).scalars())
         return found
 
-    def counts(self, sweep: str) -> dict[str, int]:
-        """Jobs per state, for the jobs ``sweep`` plans (whoever ran them)."""
+    def counts(self, sweep: str, scheme: str | None = None) -> dict[str, int]:
+        """Jobs per state, for the jobs ``sweep`` plans (whoever ran them; of fold scheme ``scheme`` only,
+        if given)."""
         m = sweep_jobs_table.c
+        only = [] if scheme is None else [jobs_table.c.scheme == scheme]
         query = (sa.select(jobs_table.c.state, sa.func.count())
                  .select_from(sweep_jobs_table.join(jobs_table, jobs_table.c.key == m.key))
-                 .where(m.sweep == sweep, m.active).group_by(jobs_table.c.state))
+                 .where(m.sweep == sweep, m.active, *only).group_by(jobs_table.c.state))
         with self.reader.connect() as conn:
             found: dict[str, int] = {str(s): int(n) for s, n in conn.execute(query).all()}
         return {state: int(found.get(state, 0)) for state in STATES}
@@ -414,7 +418,7 @@ class Store:
         now = time.time()
         c = jobs_table.c
         name = _sweeps_name(sweep)
-        query = (sa.select(c.key, name, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts)
+        query = (sa.select(c.key, name, c.fingerprint, c.config_id, c.repeat, c.fold, c.attempts, c.scheme)
                  .where(c.state == "pending", c.attempts < max_attempts, _planned_by(sweep))
                  .limit(n).with_for_update(of=jobs_table, skip_locked=True))
         # no ORDER BY: sorting every pending job at every claim costs O(pending) per claim; SQLite walks the
@@ -425,7 +429,7 @@ class Store:
                 conn.execute(sa.update(jobs_table).where(c.key.in_(chunk))
                              .values(state="running", owner=owner, lease_expires=now + lease_seconds,
                                      started_at=now, attempts=c.attempts + 1))
-        return [Claimed(r[0], r[1], r[2], r[3], r[4], r[5], r[6] + 1) for r in rows]
+        return [Claimed(r[0], r[1], r[2], r[3], r[4], r[5], r[6] + 1, r[7]) for r in rows]
 
     def renew(self, owner: str, keys: Sequence[str], lease_seconds: float) -> None:
         expires = time.time() + lease_seconds
@@ -583,14 +587,17 @@ class Store:
         with self.reader.connect() as conn:
             return dict(conn.execute(query).all())
 
-    def cell_counts(self, sweep: str, states: Sequence[str] = STATES) -> list[tuple[str, str, str, int]]:
+    def cell_counts(self, sweep: str, states: Sequence[str] = STATES,
+                    scheme: str | None = None) -> list[tuple[str, str, str, int]]:
         """(dataset, config_id, state, jobs) over the jobs ``sweep`` plans in ``states`` (whoever ran them;
         the dataset under the sweep's own name). Driven by the state index, so that leaving out "done"
-        reads only the unfinished jobs."""
+        reads only the unfinished jobs. Of fold scheme ``scheme`` only, if given (the plan's: no inner job
+        of nested selection)."""
         j = jobs_table.c
+        only = [] if scheme is None else [j.scheme == scheme]
         name = _sweeps_name(sweep).label("dataset")
         query = (sa.select(name, j.config_id, j.state, sa.func.count())
-                 .where(j.state.in_(list(states)), _planned_by(sweep))
+                 .where(j.state.in_(list(states)), _planned_by(sweep), *only)
                  .group_by(name, j.config_id, j.state))
         with self.reader.connect() as conn:
             return [(d, c, s, int(n)) for d, c, s, n in conn.execute(query)]
