@@ -19,7 +19,7 @@ job it plans, whoever ran it.
 
 Job states: ``pending`` → ``running`` (claimed by an owner with a lease) →
 ``done`` | ``failed``. A running job whose lease expired, or whose owner
-process on this host is gone, goes back to ``pending``. Only the driver
+process is certainly gone (:mod:`sweep.identity`), goes back to ``pending``. Only the driver
 writes, in batched transactions; a result row and its job's ``done`` state
 are written in the same transaction, so a kill at any moment leaves either
 both or neither.
@@ -39,7 +39,6 @@ import json
 import os
 import socket
 import time
-import uuid
 from dataclasses import dataclass
 from typing import Any, Iterable, Literal, Mapping, Sequence
 from urllib.parse import quote
@@ -164,8 +163,10 @@ class Claimed:
 
 
 def owner_id() -> str:
-    """Identity of this driver process: host, pid and a random token."""
-    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+    """Identity of this driver process (:func:`sweep.identity.owner_id`)."""
+    from sweep.identity import owner_id
+
+    return owner_id()
 
 
 class Store:
@@ -251,7 +252,7 @@ class Store:
             raise StoreError(f"{_where(self.url)}: this database holds other tables and is not a "
                              "foldsweep store; point 'store' at a new file or database")
         with self.reader.connect() as conn:
-            value = conn.execute(sa.select(meta_table.c.value)
+            value: Any = conn.execute(sa.select(meta_table.c.value)
                                  .where(meta_table.c.name == "schema_version")).scalar()
         try:
             return int(value)
@@ -351,7 +352,7 @@ class Store:
                 sa.select(m.key, m.dataset, m.active).where(m.sweep == sweep)).cursor.fetchall()}
             joining = [j for k, j in wanted.items() if k not in have]
             new = joining
-            stored = conn.execute(sa.select(sa.func.count()).select_from(jobs_table)).scalar()
+            stored = conn.execute(sa.select(sa.func.count()).select_from(jobs_table)).scalar() or 0
             if joining and stored > len(have):  # a store shared by several specs: some keys may be planned already
                 elsewhere = self._keys_stored(conn, [j.key for j in joining])
                 new = [j for j in joining if j.key not in elsewhere]
@@ -386,7 +387,7 @@ class Store:
                  .select_from(sweep_jobs_table.join(jobs_table, jobs_table.c.key == m.key))
                  .where(m.sweep == sweep, m.active, *only).group_by(jobs_table.c.state))
         with self.reader.connect() as conn:
-            found = dict(conn.execute(query).all())
+            found: dict[str, int] = {str(s): int(n) for s, n in conn.execute(query).all()}
         return {state: int(found.get(state, 0)) for state in STATES}
 
     def requeue_stale(self, sweep: str, now: float | None = None) -> int:
@@ -496,6 +497,20 @@ class Store:
 
     # ---- reading ---------------------------------------------------------------------------
 
+    def held_by_gone(self, keys: Sequence[str], now: float | None = None) -> set[str]:
+        """The keys among ``keys`` of running jobs whose driver is gone (its lease expired, or it is
+        certainly dead: :func:`sweep.identity.is_gone`); the next run gives them back to pending."""
+        now = time.time() if now is None else now
+        j = jobs_table.c
+        gone: set[str] = set()
+        with self.reader.connect() as conn:
+            for chunk in _chunks(list(keys), 900):
+                for key, owner, lease in conn.execute(sa.select(j.key, j.owner, j.lease_expires)
+                                                      .where(j.key.in_(chunk), j.state == "running")):
+                    if (lease is not None and lease < now) or _dead_here(owner, ""):
+                        gone.add(key)
+        return gone
+
     def job_states(self, keys: Sequence[str]) -> dict[str, tuple[str, str | None, bool]]:
         """key -> (state, error, timed_out) of the stored jobs among ``keys`` (whichever sweeps plan them)."""
         j = jobs_table.c
@@ -531,7 +546,7 @@ class Store:
         with self.reader.connect() as conn:
             result = conn.execute(query)
             # plain DBAPI tuples: a million SQLAlchemy Row objects cost more than the query itself
-            return result.cursor.fetchall(), list(result.keys())
+            return list(result.cursor.fetchall()), list(result.keys())
 
     def versions(self, *, scheme: str, fingerprints: Sequence[str], repeats: int,
                  k: int) -> dict[tuple[str, str], int]:
@@ -645,7 +660,7 @@ def _insert_new(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str
     if conn.dialect.name == "sqlite":
         from sqlalchemy.dialects.sqlite import insert
     elif conn.dialect.name == "postgresql":
-        from sqlalchemy.dialects.postgresql import insert
+        from sqlalchemy.dialects.postgresql import insert  # type: ignore[assignment]
     else:
         conn.execute(sa.insert(table), list(rows))
         return
@@ -753,18 +768,11 @@ def _sqlite_begin(conn: sa.Connection) -> None:
 
 
 def _dead_here(owner: str | None, host: str) -> bool:
-    if not owner:
-        return True
-    parts = owner.split(":")
-    if len(parts) < 3 or parts[0] != host or not parts[1].isdigit():
-        return False
-    try:
-        os.kill(int(parts[1]), 0)
-    except ProcessLookupError:
-        return True
-    except PermissionError:
-        return False
-    return False
+    """Whether ``owner`` is certainly gone (``host`` is unused: :func:`sweep.identity.is_gone` checks
+    the host along with the boot and the PID namespace)."""
+    from sweep.identity import is_gone
+
+    return is_gone(owner)
 
 
 def _chunks(items: Sequence[Any], size: int) -> Iterable[Sequence[Any]]:
