@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import json
 import os
+import secrets
 import socket
 import time
 from dataclasses import dataclass
@@ -194,6 +195,8 @@ class Store:
         path = sqlite_path(url)
         if path is not None:
             _check_sqlite_file(path, create)
+            if create and not os.path.exists(path):
+                _create_sqlite_file(path)
         check = path is not None and create and os.path.exists(path)  # a file made before: check it first
         engine = _engine(url, readonly=not create)
         try:
@@ -272,8 +275,7 @@ class Store:
         with self.engine.begin() as conn:
             if conn.dialect.name == "postgresql":  # two drivers creating one store: one at a time
                 conn.exec_driver_sql("SELECT pg_advisory_xact_lock(2718281828)")
-            metadata.create_all(conn)
-            _insert_new(conn, meta_table, [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+            _create_schema(conn)
 
     # ---- registering what a plan needs ----------------------------------------------------
 
@@ -701,6 +703,34 @@ def sqlite_path(url: str) -> str | None:
         raise StoreError(f"store {url!r}: an in-memory SQLite database keeps nothing after the command ends; "
                          "give a file path (store = \"sweep.sqlite\") or a sqlite:////absolute/path URL")
     return os.path.abspath(parsed.database)
+
+
+def _create_schema(conn: sa.Connection) -> None:
+    metadata.create_all(conn)
+    _insert_new(conn, meta_table, [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+
+
+def _create_sqlite_file(path: str) -> None:
+    """Make a new SQLite store whole before it appears under its name: built in a temporary file in
+    the same folder, then hard-linked into place. A driver starting at the same instant sees either
+    no file or a complete store, never the empty file SQLite writes first (refused as damaged)."""
+    tmp = f"{path}.new-{os.getpid()}-{secrets.token_hex(4)}"
+    engine = sa.create_engine(sa.engine.URL.create("sqlite", database=tmp))
+    try:
+        with engine.begin() as conn:
+            _create_schema(conn)
+    finally:
+        engine.dispose()
+    try:
+        os.link(tmp, path)  # fails if another driver linked its store first: that one is used
+    except FileExistsError:
+        pass
+    except OSError:  # a file system without hard links: a rename, unless a store appeared meanwhile
+        if not os.path.exists(path):
+            os.rename(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
 
 
 def _check_sqlite_file(path: str, create: bool) -> None:
