@@ -35,7 +35,7 @@ import json
 import math
 import os
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -261,7 +261,7 @@ def _nearest(word: str, choices: Sequence[str]) -> str:
     return f"; did you mean {close[0]!r}?" if close else ""
 
 
-def _choices(choices: Sequence[str]) -> str:
+def _choices(choices: Iterable[str]) -> str:
     return ", ".join(choices)
 
 
@@ -692,7 +692,8 @@ def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, wh
 
 
 def _feature_names(features: list[str], columns: list[str], where: str) -> list[str]:
-    names, seen = [], {}
+    names: list[str] = []
+    seen: dict[str, str] = {}
     for col in features:
         clean = sanitize_name(col, columns.index(col))
         if clean in seen:

@@ -56,6 +56,13 @@ def compute_folds(y: np.ndarray, scheme: FoldScheme) -> list[Fold]:
     return folds
 
 
+def stratified_kfold(y: np.ndarray, k: int, seed: int) -> list[np.ndarray]:
+    """The test parts (sorted positions into ``y``) of scikit-learn's ``StratifiedKFold(n_splits=k,
+    shuffle=True, random_state=seed).split(y, y)``, in split order (the tests check it split for split)."""
+    assignment = _test_folds(np.asarray(y), k, np.random.RandomState(seed))
+    return [np.flatnonzero(assignment == i) for i in range(k)]
+
+
 def _test_folds(y: np.ndarray, k: int, rng: np.random.RandomState) -> np.ndarray:
     # scikit-learn's stratified allocation: classes coded by order of first appearance, per-fold
     # counts by dealing the sorted labels round robin, each class's fold labels shuffled.

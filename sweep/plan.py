@@ -47,6 +47,8 @@ class PlannedJob(NamedTuple):
     config_id: str
     repeat: int
     fold: int
+    #: the fold scheme of an inner job (sweep.nested.inner_scheme); "" for an outer job (the plan's scheme)
+    scheme: str = ""
 
 
 @dataclass(frozen=True)
@@ -59,6 +61,10 @@ class Plan:
     scheme: str
     repeats: int
     k: int
+    #: inner folds per outer training part ([selection] inner_k); 0 without nested selection
+    inner_k: int = 0
+    #: (model block label, its configuration ids in grid order), in spec order
+    blocks: tuple[tuple[str, tuple[str, ...]], ...] = ()
 
     @cached_property
     def jobs(self) -> tuple[PlannedJob, ...]:
@@ -67,6 +73,26 @@ class Plan:
         return tuple(PlannedJob(job_key(fp, self.scheme, r, f, c.config_id, c.worker_version), name, fp,
                                 c.config_id, r, f)
                      for name, fp in self.datasets for c in self.configurations for r, f in folds)
+
+    @cached_property
+    def inner_jobs(self) -> tuple[PlannedJob, ...]:
+        """The inner jobs of nested selection (none without it): datasets × configurations × repeats ×
+        outer folds × inner folds; ``fold`` numbers them as sweep.nested.inner_number does."""
+        if not self.inner_k:
+            return ()
+        from sweep.nested import inner_number, inner_scheme
+
+        scheme = inner_scheme(self.scheme, self.inner_k)
+        folds = [(r, inner_number(f, i, self.inner_k)) for r in range(self.repeats) for f in range(self.k)
+                 for i in range(self.inner_k)]
+        return tuple(PlannedJob(job_key(fp, scheme, r, n, c.config_id, c.worker_version), name, fp,
+                                c.config_id, r, n, scheme)
+                     for name, fp in self.datasets for c in self.configurations for r, n in folds)
+
+    @property
+    def all_jobs(self) -> tuple[PlannedJob, ...]:
+        """Outer jobs, then inner jobs: what the tracker holds for this plan."""
+        return self.jobs + self.inner_jobs if self.inner_k else self.jobs
 
     @cached_property
     def by_config(self) -> dict[str, Configuration]:
@@ -125,6 +151,7 @@ def make_plan(spec: Spec, fingerprints: Mapping[str, str], workers: Mapping[str,
     maps worker name to its :class:`workers.registry.Worker`.
     """
     configurations: dict[str, Configuration] = {}
+    blocks = []
     for i, block in enumerate(spec.models):
         worker = workers[block.worker]
         expanded = expand_block(block, worker.params, worker.version)
@@ -132,5 +159,8 @@ def make_plan(spec: Spec, fingerprints: Mapping[str, str], workers: Mapping[str,
             raise SpecError(f"{spec.path}: model[{i}] {block.label!r}: the grid is empty after its exclude rules")
         for config in expanded:
             configurations.setdefault(config.config_id, config)
+        blocks.append((block.label, tuple(c.config_id for c in expanded)))
     datasets = tuple((entry["name"], fingerprints[entry["name"]]) for entry in spec.datasets)
-    return Plan(tuple(configurations.values()), datasets, spec.folds.key, spec.folds.repeats, spec.folds.k)
+    inner_k = spec.selection.inner_k if spec.selection is not None else 0
+    return Plan(tuple(configurations.values()), datasets, spec.folds.key, spec.folds.repeats, spec.folds.k,
+                inner_k, tuple(blocks))

@@ -10,6 +10,10 @@
     foldsweep rank SPEC [--metric M] [--partial] [--control CONFIG] [--posthoc ...] [--alpha A] [--tie-correction] [--json] [--out FILE]
     foldsweep plot SPEC --kind ranks|heatmap --out FILE.png|.pdf|.svg [--relative difference|rank|none] [--metric M] [--json]
     foldsweep report SPEC --out study.html [--metric M] [--alpha A] [--rope R] [--partial]
+    foldsweep best SPEC --nested [--json] [--out FILE]   (nested selection: sweep.nested)
+
+``table``, ``compare``, ``rank`` and ``report`` take ``--tuned`` (one more configuration per model block, ``NAME
+(tuned)``: per outer fold the configuration its inner folds selected; sweep.nested) or ``--only-tuned``.
 
 A CONFIG is a configuration's name (as ``foldsweep configs`` lists it), its id
 (or a unique prefix of one) or a parameter filter such as
@@ -36,6 +40,9 @@ ALPHA = number_between(0, 1, open_ends=True)
 def add_commands(subparsers: Any) -> None:
     """Add the report subcommands to an ``argparse`` subparsers object."""
     best = _command(subparsers, "best", "per dataset: the winning configuration, mean ± sd, margin to the runner-up")
+    best.add_argument("--nested", action="store_true",
+                      help="per dataset and model block: the nested estimate (inner-fold selection, the spec's "
+                           "[selection]) beside the naive best, and each outer fold's choice")
     best.set_defaults(func=cmd_best)
 
     table = _command(subparsers, "table", "datasets x configurations table of cell means")
@@ -48,6 +55,7 @@ def add_commands(subparsers: Any) -> None:
                        help="columns headed C1, C2, ... with a legend of names and parameters (wide tables)")
     table.add_argument("--caption", default=None, help="LaTeX caption (default: the metric and what bold means)")
     table.add_argument("--label", default=None, help="LaTeX \\label key (default tab:METRIC)")
+    _tuned_option(table)
     table.set_defaults(func=cmd_table)
 
     compare = _command(subparsers, "compare", "two configurations paired over datasets: wins/ties/losses, sign test, Wilcoxon",
@@ -61,11 +69,13 @@ def add_commands(subparsers: Any) -> None:
     compare.add_argument("--partial", action="store_true",
                          help="use the folds both have on datasets with incomplete cells (default: complete cells only)")
     _bayes_options(compare)
+    _tuned_option(compare)
     compare.set_defaults(func=cmd_compare)
 
     rank = _command(subparsers, "rank", "average ranks, Friedman, Iman-Davenport, Nemenyi CD and post-hoc tests")
     _rank_options(rank)
     rank.add_argument("--limit", type=_positive, default=20, help="rows shown of rankings and post-hoc tables")
+    _tuned_option(rank)
     rank.set_defaults(func=cmd_rank)
 
     plot = _command(subparsers, "plot", "critical-difference rank plot or dataset x configuration heatmap", out=False)
@@ -87,6 +97,7 @@ def add_commands(subparsers: Any) -> None:
     study.add_argument("--limit", type=_positive, default=10,
                        help="best-ranked configurations in the rank plot and the pairwise tests (default 10)")
     _bayes_options(study)
+    _tuned_option(study)
     study.set_defaults(func=cmd_report)
 
 
@@ -114,6 +125,14 @@ def _command(subparsers: Any, name: str, text: str, *, where: bool = True, out: 
     return parser
 
 
+def _tuned_option(parser: argparse.ArgumentParser) -> None:
+    tuned = parser.add_mutually_exclusive_group()
+    tuned.add_argument("--tuned", action="store_true",
+                       help="add one row per model block, 'NAME (tuned)': per outer fold the configuration its "
+                            "inner folds selected (needs [selection] in the spec)")
+    tuned.add_argument("--only-tuned", action="store_true", help="the tuned rows alone, one per model block")
+
+
 def _rank_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--control", default=None, metavar="CONFIG", help="compare every configuration with this one")
     parser.add_argument("--posthoc", choices=("auto", "holm", "finner", "li", "bonferroni", "shaffer", "none"),
@@ -129,7 +148,12 @@ def _load(args: argparse.Namespace):
     from sweep.results import load_sweep_results
 
     metric = getattr(args, "metric", None)
-    return load_sweep_results(args.spec, metrics=[metric] if metric else None)
+    res = load_sweep_results(args.spec, metrics=[metric] if metric else None)
+    if getattr(args, "tuned", False) or getattr(args, "only_tuned", False):
+        from sweep.nested import add_tuned
+
+        res = add_tuned(res, only=args.only_tuned)
+    return res
 
 
 def _emit(args: argparse.Namespace, text: str) -> None:
@@ -149,6 +173,8 @@ def _dumps(data: Any) -> str:
 def cmd_best(args: argparse.Namespace) -> int:
     from sweep import report
 
+    if args.nested:
+        return _best_nested(args)
     res = _load(args)
     frame = report.best(res, args.metric, where=args.where, higher=args.higher)
     if args.json:
@@ -177,6 +203,35 @@ def _best_text(frame) -> str:
                      f"{margin}{state}")
     if any(not c for c, n in zip(frame["complete"], frame["folds"]) if n):
         lines.append("[incomplete]: the winner has fewer finished folds than planned (the sweep is running or jobs failed)")
+    return "\n".join(lines) + "\n"
+
+
+def _best_nested(args: argparse.Namespace) -> int:
+    from sweep.errors import SelectionError
+    from sweep.nested import load_nested
+
+    view, summary = load_nested(args.spec)
+    metric = view.spec.selection.metric
+    if args.metric not in (metric, "accuracy") or args.where:
+        raise SelectionError(f"{args.spec}: best --nested scores in the spec's selection.metric ({metric!r}) over "
+                             "every configuration of each block; leave out --metric and --where")
+    _emit(args, _dumps(summary) if args.json else _nested_text(summary))
+    return 0
+
+
+def _nested_text(summary: list[dict[str, Any]]) -> str:
+    def number(value: float | None) -> str:
+        return "?" if value is None else f"{value:.4f}"
+
+    lines = []
+    for s in summary:
+        optimism = "" if s["optimism"] is None else f", optimism {s['optimism']:+.4f}"
+        lines.append(f"{s['dataset']} · {s['model']}: nested {s['metric']} {number(s['nested_accuracy'])} "
+                     f"({s['folds_selected']}/{s['folds']} outer folds selected), naive best "
+                     f"{number(s['naive_accuracy'])} [{s['naive_config'] or '?'}]{optimism}")
+        for c in s["choices"]:
+            lines.append(f"  repeat {c['repeat']} fold {c['fold']}: {c['config']}: "
+                         f"inner {c['inner_score']:.4f}, outer {number(c['outer_score'])}")
     return "\n".join(lines) + "\n"
 
 
@@ -237,6 +292,10 @@ def cmd_report(args: argparse.Namespace) -> int:
     from sweep.study_report import build_report
 
     res = load_sweep_results(args.spec, metrics=[args.metric], details=True)
+    if args.tuned or args.only_tuned:
+        from sweep.nested import add_tuned
+
+        res = add_tuned(res, only=args.only_tuned)
     html = build_report(res, args.metric, higher=args.higher, alpha=args.alpha, rope=args.rope,
                         partial=args.partial, where=args.where, limit=args.limit)
     from sweep.report import write_text_atomic

@@ -170,6 +170,6 @@ def load_sweep_results(spec_path: str | Path, metrics: Sequence[str] | None = No
 
 def _details(view: TrackerView, store: Any) -> dict[str, Any]:
     # done jobs are counted from the results frame (the report's cells); the tracker adds the others
-    return {"cell_counts": store.cell_counts(view.spec.name, ("pending", "running", "failed")),
+    return {"cell_counts": store.cell_counts(view.spec.name, ("pending", "running", "failed"), scheme=view.plan.scheme),
             "failed": store.failed_jobs(view.spec.name),
             "datasets": store.dataset_records([fp for fp in view.fingerprints.values() if fp])}

@@ -13,6 +13,10 @@
     repeats = 1
     seed = 0
 
+    [selection]                       # optional: nested selection (sweep.nested)
+    inner_k = 3                       # stratified inner folds inside each outer training part
+    metric = "accuracy"               # what the inner folds maximise: accuracy | balanced_accuracy | kappa
+
     [[dataset]]                       # see sweep.datasets for the dataset keys
     name = "iris"
     builtin = "iris"
@@ -53,9 +57,12 @@ from typing import Any, Mapping
 
 from sweep.errors import SpecError
 
-TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "memory_limit", "folds", "dataset",
-            "model")
+TOP_KEYS = ("name", "description", "store", "time_limit", "max_attempts", "memory_limit", "folds", "selection",
+            "dataset", "model")
 FOLD_KEYS = ("k", "repeats", "seed")
+SELECTION_KEYS = ("inner_k", "metric")
+#: what the inner folds of a nested selection may maximise (result columns where higher is better)
+SELECTION_METRICS = ("accuracy", "balanced_accuracy", "kappa")
 MODEL_KEYS = ("name", "worker", "fixed", "grid", "exclude", "applies", "label", "names")
 
 #: longest sweep, dataset, model block and worker name: the tracker's String(200) columns
@@ -85,6 +92,14 @@ class FoldScheme:
     def key(self) -> str:
         """The scheme's identity, part of every job key."""
         return f"stratified-k{self.k}-r{self.repeats}-s{self.seed}"
+
+
+@dataclass(frozen=True)
+class Selection:
+    """Nested selection: ``inner_k`` stratified inner folds in each outer training part, maximising ``metric``."""
+
+    inner_k: int = 3
+    metric: str = "accuracy"
 
 
 @dataclass(frozen=True)
@@ -119,6 +134,8 @@ class Spec:
     memory_limit: str | None
     #: sha256 of the file's bytes (recorded with the sweep)
     digest: str
+    #: the [selection] section (nested selection), None without one
+    selection: Selection | None = None
 
 
 def load_spec(path: str | Path) -> Spec:
@@ -164,6 +181,7 @@ def parse_spec(doc: Mapping[str, Any], path: Path, digest: str = "") -> Spec:
         max_attempts=_int_between(doc.get("max_attempts", 3), 1, MAX_ATTEMPTS, where, "max_attempts"),
         memory_limit=_memory_limit(doc.get("memory_limit"), where),
         digest=digest,
+        selection=_selection(doc.get("selection"), where),
     )
     _check_size(spec, where)
     return spec
@@ -267,6 +285,17 @@ def _folds(table: Any, where: str) -> FoldScheme:
         repeats=_int_at_least(table.get("repeats", 1), 1, where, "folds.repeats"),
         seed=_int_between(table.get("seed", 0), 0, MAX_SEED, where, "folds.seed"),
     )
+
+
+def _selection(table: Any, where: str) -> Selection | None:
+    if table is None:
+        return None
+    _check_keys(table, SELECTION_KEYS, where, "selection.")
+    metric = table.get("metric", "accuracy")
+    if metric not in SELECTION_METRICS:
+        raise SpecError(f"{where}: selection.metric must be one of {', '.join(SELECTION_METRICS)}, got {metric!r}"
+                        f"{nearest(str(metric), SELECTION_METRICS)}")
+    return Selection(inner_k=_int_at_least(table.get("inner_k", 3), 2, where, "selection.inner_k"), metric=metric)
 
 
 def _datasets(entries: Any, where: str) -> tuple[Mapping[str, Any], ...]:

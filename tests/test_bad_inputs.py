@@ -118,6 +118,14 @@ CASES: dict[str, Case] = {
     "store of another schema version (status)": (with_store("v99.sqlite"), ["status"], "schema version 99",
                                                  copy_as("v99.sqlite", schema_99)),
     "spec file missing": (None, ["run", "--spec-is", "absent.toml"], "cannot read the spec", None),
+    # -- nested selection (issue 15) ------------------------------------------------------------
+    "selection.inner_k = 1": (valid("[folds]", "[selection]\ninner_k = 1\n[folds]"), ["run"],
+                              "selection.inner_k must be an integer >= 2, got 1", None),
+    "selection.metric misspelt": (valid("[folds]", '[selection]\nmetric = "acuracy"\n[folds]'), ["run"],
+                                  "did you mean 'accuracy'", None),
+    "selection key misspelt": (valid("[folds]", "[selection]\ninner = 3\n[folds]"), ["run"],
+                               "did you mean 'inner_k'", None),
+    "best --nested without [selection]": (None, ["best", "--nested"], "no [selection] section", None),
     # -- spec values -----------------------------------------------------------------------------
     "seed = 2**32": (valid("k = 3", "k = 3\nseed = 4294967296"), ["run"], "folds.seed must be an integer from 0 to",
                      None),

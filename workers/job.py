@@ -47,6 +47,9 @@ class Job:
     test_index: np.ndarray
     #: seconds; None for no limit
     time_limit: float | None = None
+    #: row indices of the training part when it is not every row outside the test part (an inner job of
+    #: nested selection trains on part of its outer training part; the outer test rows are in neither)
+    train_index: np.ndarray | None = None
     #: the fold scheme's seed: a declared ``random_state`` left at None gets ``derived_seed(folds_seed, repeat, fold)``
     folds_seed: int = 0
 
@@ -167,7 +170,14 @@ def _fit_and_score(worker: Any, estimator: Any, job: Job, data: Any) -> dict[str
 
     test = np.zeros(len(data.y), dtype=bool)
     test[job.test_index] = True
-    X_train, y_train = data.X[~test], data.y[~test]
+    if job.train_index is None:
+        train = ~test
+    else:
+        train = np.zeros(len(data.y), dtype=bool)
+        train[job.train_index] = True
+        if (train & test).any():
+            raise ValueError(f"job {job.key}: its training and test rows overlap")
+    X_train, y_train = data.X[train], data.y[train]
     X_test, y_test = data.X[test], data.y[test]
     # a dataset loaded with missing = "impute" has NaN cells: filled from this training part
     X_train, X_test = fill_from_training(X_train, X_test, data.nominal, data.feature_names)
