@@ -99,3 +99,11 @@ def test_a_worker_without_random_state_is_left_alone() -> None:
     job = Job(key="k", worker="knn", params={"n_neighbors": 5, "weights": "uniform"}, dataset="d",
               fingerprint="f", repeat=0, fold=0, test_index=np.arange(3))
     assert job_params(knn, job) == {"n_neighbors": 5, "weights": "uniform"}
+
+
+def test_inner_jobs_seeds_never_repeat_an_outer_folds_seed() -> None:
+    # an inner job's packed fold number f*K+i is also an outer fold number; its own spawn key keeps the
+    # streams apart (numpy's SeedSequence spawn keys: common practice for independent streams)
+    outer = {derived_seed(0, r, f) for r in range(3) for f in range(10)}
+    inner = {derived_seed(0, r, f * 3 + i, inner=True) for r in range(3) for f in range(10) for i in range(3)}
+    assert len(inner) == 90 and not outer & inner

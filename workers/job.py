@@ -106,16 +106,19 @@ def resolve_data(data: Any) -> Any:
     return _cache[data.fingerprint]
 
 
-def derived_seed(folds_seed: int, repeat: int, fold: int) -> int:
+def derived_seed(folds_seed: int, repeat: int, fold: int, *, inner: bool = False) -> int:
     """The seed of fold ``fold`` of repeat ``repeat`` under a fold scheme seeded ``folds_seed``.
 
     numpy's ``SeedSequence`` with the scheme's seed as entropy and ``(repeat,
-    fold)`` as spawn key (its documented way to derive independent streams),
+    fold)`` as spawn key (its documented way to derive independent streams;
+    ``(repeat, fold, 1)`` for an inner job of nested selection, whose packed
+    fold number could otherwise repeat an outer fold's seed),
     cut to ``[0, 2**31 - 1]``, the range every declared ``random_state`` accepts.
     Part of what a job key stands for (it covers the scheme's seed, the repeat
     and the fold): never change it without changing the workers' versions.
     """
-    state = np.random.SeedSequence(folds_seed, spawn_key=(repeat, fold)).generate_state(1, np.uint32)
+    key = (repeat, fold, 1) if inner else (repeat, fold)
+    state = np.random.SeedSequence(folds_seed, spawn_key=key).generate_state(1, np.uint32)
     return int(state[0] >> 1)
 
 
@@ -124,7 +127,8 @@ def job_params(worker: Any, job: Job) -> dict[str, Any]:
     None filled with the fold's :func:`derived_seed`."""
     params = dict(job.params)
     if "random_state" in worker.params and params.get("random_state") is None:
-        params["random_state"] = derived_seed(job.folds_seed, job.repeat, job.fold)
+        params["random_state"] = derived_seed(job.folds_seed, job.repeat, job.fold,
+                                              inner=job.train_index is not None)
     return params
 
 
