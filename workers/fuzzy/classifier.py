@@ -316,9 +316,9 @@ class _Fitness:
         pending = []
         for k in np.flatnonzero(n_sel):
             sel = np.flatnonzero(bits[k])
-            M = self.cache(reals[k, : self.n_disp] if self.n_disp else self.zero)
+            M, items = self.cache.rows(reals[k, : self.n_disp] if self.n_disp else self.zero, self.items[sel])
             q = exponent_from_gene(reals[k, self.n_disp:]) if self.learn_q else self.fixed_q
-            args = (M, self.items[sel], self.classes[sel], self.weight[sel], self.n_classes)
+            args = (M, items, self.classes[sel], self.weight[sel], self.n_classes)
             if shortcut:
                 pending.append((k, q, sel, *contested_part(*args[:-1], self.onehot[sel])))
             else:
