@@ -281,12 +281,18 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
 class _Fitness:
     """Fitness of chromosomes (real part, bits) on the training part, vectorised over examples.
 
-    Memberships are computed only for the items the prescreened rules use,
-    and reused (:class:`MembershipCache`) while the real part is unchanged.
-    For the integral methods only the contested examples are aggregated
-    (:func:`~workers.fuzzy.reasoning.contested_part`), those of a whole batch
-    of chromosomes stacked into one call of the measures, so that their
-    per-call cost is paid once per generation.
+    Per chromosome, memberships are computed only for the items its
+    selected rules use (:meth:`MembershipCache.rows`; the same values
+    bit-for-bit as the whole matrix): lateral tuning moves every label of
+    every offspring, so nothing is reused between chromosomes, but a rule
+    base of a few dozen rules uses a fraction of the items (on digits this
+    cut the additive genetic stage from 13 to 8 CPU seconds). For the
+    integral methods only the contested examples are aggregated
+    (:func:`~workers.fuzzy.reasoning.contested_part`), those of a whole
+    batch of chromosomes stacked into one call of the measures, so that
+    their per-call cost is paid once per generation; for the Choquet
+    integral, only the (example, class) vectors in which a rule fires
+    (:meth:`_integrate_firing`).
     """
 
     def __init__(self, partition: FuzzyPartition, X: np.ndarray, rules: RuleSet, y: np.ndarray,
