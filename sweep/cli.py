@@ -12,7 +12,9 @@
 Exit codes: 0 done; 1 ``run`` finished but jobs of the sweep are failed
 (see ``foldsweep failures``); 2 bad input of any kind (one line on standard
 error, argument errors too: :class:`OneLineParser`, with any password in a URL
-masked); 130 interrupted.
+masked); for a run stopped by a signal 128 + its number: 130 SIGINT (Ctrl-C),
+143 SIGTERM, 129 SIGHUP (what finished is committed, the rest is pending again;
+a second signal exits at once with the same code).
 """
 
 from __future__ import annotations
@@ -108,7 +110,7 @@ def build_parser() -> argparse.ArgumentParser:
     try:
         from sweep import report_cli
     except ImportError:  # pragma: no cover - the report commands are optional while being built
-        report_cli = None
+        report_cli = None  # type: ignore[assignment]
     if report_cli is not None:
         report_cli.add_commands(sub)
     return parser
@@ -178,24 +180,19 @@ def _check_scheduler(address: str) -> None:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from sweep.cluster_process import start_for
-
     _check_run_arguments(args)
-    # first, so that an embedded dask cluster comes up during the imports and the planning below;
-    # the run owns it from here (and a process that dies before lets it go by dying)
-    cluster = start_for(args.spec, args.backend, args.workers, args.scheduler)
     from sweep.run import RunOptions, run_sweep
 
     options = RunOptions(workers=args.workers, backend=args.backend, scheduler=args.scheduler,
                          retry_failed=args.retry_failed, claim=args.claim,
                          accept_changed_data=args.accept_changed_data, progress=args.progress)
-    summary = run_sweep(args.spec, options, cluster=cluster)
+    summary = run_sweep(args.spec, options)
     if args.json:
         print(json.dumps(summary.__dict__))
     else:
         print(_describe_run(summary))
     if summary.interrupted:
-        return EXIT_INTERRUPTED
+        return 128 + (summary.signal or 2)
     return EXIT_JOBS_FAILED if summary.failed else 0
 
 
@@ -213,7 +210,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     from sweep.run import load_inputs, open_store
 
     inputs = load_inputs(args.spec)
-    counts = {"total": len(inputs.plan.jobs), "done": 0, "failed": 0, "pending": 0, "running": 0}
+    # "gone": running jobs whose driver is gone (dead, or its lease expired); the next run re-queues them
+    counts = {"total": len(inputs.plan.jobs), "done": 0, "failed": 0, "pending": 0, "running": 0, "gone": 0}
     failures: dict[str, int] = {}
     try:
         store = open_store(inputs.spec, create=False)
@@ -223,12 +221,13 @@ def cmd_status(args: argparse.Namespace) -> int:
     if store is not None:
         try:  # every job the spec plans, whichever sweep planned or ran it first
             states = store.job_states([job.key for job in inputs.plan.all_jobs])
+            gone = store.held_by_gone([j.key for j in inputs.plan.all_jobs])
         finally:
             store.close()
         for job in inputs.plan.all_jobs:
             state, error, timed_out = states.get(job.key, ("pending", None, False))
             if not job.scheme:  # an inner job (nested selection) is counted apart, below
-                counts[state] += 1
+                counts["gone" if job.key in gone else state] += 1
             if state == "failed":
                 message = "timed out" if timed_out else _last_line(error)
                 failures[message] = failures.get(message, 0) + 1
@@ -239,7 +238,9 @@ def cmd_status(args: argparse.Namespace) -> int:
         print(json.dumps({**counts, **nested, "failures": failures}))
         return 0
     print(f"sweep {inputs.spec.name!r}: {counts['done']}/{counts['total']} done, {counts['failed']} failed, "
-          f"{counts['running']} running, {counts['pending']} pending")
+          f"{counts['running']} running, {counts['pending']} pending"
+          + (f", {counts['gone']} held by a driver that is gone (pending again at the next run)"
+             if counts["gone"] else ""))
     if nested:
         inner, (selected, total) = nested["inner"], nested["selections"].values()
         print(f"  inner jobs (nested selection): {inner['done']}/{inner['total']} done, {inner['failed']} failed, "
@@ -342,8 +343,8 @@ def cmd_failures(args: argparse.Namespace) -> int:
     for message, members in sorted(groups.items(), key=lambda kv: -len(kv[1])):
         print(f"{len(members)} x {message}")
         for r in members:
-            inner = f" inner fold {r['inner_fold']}" if "inner_fold" in r else ""
-            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}{inner}  "
+            inner_fold = f" inner fold {r['inner_fold']}" if "inner_fold" in r else ""
+            print(f"    {r['dataset']}  {r['config']}  repeat {r['repeat']} fold {r['fold']}{inner_fold}  "
                   f"attempts {r['attempts']}  key {r['key']}")
     return 0
 
@@ -432,9 +433,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except FoldsweepError as exc:
         print(f"foldsweep: error: {' '.join(printable(mask_passwords(str(exc))).split())}", file=sys.stderr)
         return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:  # before the run loop started (sweep.run.Interrupted) or elsewhere
         print("foldsweep: interrupted", file=sys.stderr)
-        return EXIT_INTERRUPTED
+        return 128 + int(getattr(exc, "signum", 2))
     except BrokenPipeError:
         return 0
 

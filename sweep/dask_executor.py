@@ -1,45 +1,45 @@
 """The dask.distributed executor: an embedded LocalCluster, or an existing scheduler.
 
-``foldsweep run --backend dask`` runs the embedded cluster and this executor in a process of
-their own where it can (:mod:`sweep.cluster_process`, reached through :mod:`sweep.relay`), in
-the driver where it cannot fork safely; with ``--scheduler`` this executor is in the driver.
+- Embedded (no address): a LocalCluster in the driver, worker *processes*, one
+  thread each (the work is CPU-bound Python and numpy), a memory limit per
+  worker (the spec's ``memory_limit``, else the machine's memory split evenly).
+  It is closed to everyone but this run: TLS on loopback with credentials made
+  for this run alone (``Security.temporary()``), so that no other local user can
+  connect to it and run code as the sweep's user. Its workers are on this host:
+  each dataset is written once to a file they load and keep
+  (:class:`sweep.executor_base.FileShare`). Each worker process watches the
+  driver and ends with it (:mod:`sweep.lifeline`).
+- Existing cluster (``--scheduler tls://HOST:PORT`` or ``tcp://``): the jobs run
+  wherever that scheduler places them; the worker count is the cluster's thread
+  count. Its security settings come from dask's configuration
+  (``distributed.comm.tls.*``, e.g. in ``~/.config/dask/`` or ``DASK_*``
+  variables). Each dataset is scattered once to every worker
+  (``broadcast=True``); should every copy die with its workers, it is scattered
+  again before the next job that needs it.
 
-- Embedded (no address): worker *processes*, one thread each (the work is
-  CPU-bound Python and numpy), on loopback TCP, a memory limit per worker
-  (the spec's ``memory_limit``, else the machine's memory split evenly).
-- Existing cluster (``--scheduler tcp://HOST:PORT``): the jobs run wherever
-  that scheduler places them; the worker count is the cluster's thread count.
-
-Each dataset given to :meth:`DaskExecutor.share` is scattered once to every
-worker (``broadcast=True``) and every job refers to it, so no dataset
-travels with each job (the embedded cluster's own process is handed files
-instead: :mod:`sweep.relay`). A worker that
-starts later (a restart, a new batch job) fetches it from a peer; should
-every copy die with its workers, the dataset is scattered again before the
-next job that needs it. The run loop keeps a bounded window of futures in
-flight. The embedded scheduler does not retry a task whose worker died
-(``allowed-failures = 0``): the run loop's own attempt accounting decides,
-and runs a retried job alone so that a job that kills its worker is
-identified exactly. A task cancelled for another reason (its dataset's
+The embedded scheduler does not retry a task whose worker died
+(``allowed-failures = 0``): the run loop's own attempt accounting decides
+(:mod:`sweep.loop_core`). A task cancelled for another reason (its dataset's
 copies were lost, the scheduler restarted) goes back without counting an
 attempt against the job.
 
-The embedded cluster's worker processes are forked from a server process
-that has already imported what a worker needs (:mod:`sweep.forking`). Its
-settings (``EMBEDDED_CONFIG``) turn off what only a dashboard would show: with dask's defaults, two idle workers and their
-scheduler use about 20 % of a core (measured: driver 9 %, workers 11.5 %;
-with these settings 1.3 % and 1.0 %), CPU taken from the jobs.
+Settings (``EMBEDDED_CONFIG``) turn off what only a dashboard would show: with
+dask's defaults, two idle workers and their scheduler use about 20 % of a core
+(measured: driver 9 %, workers 11.5 %; with these settings 1.3 % and 1.0 %), CPU
+taken from the jobs.
 """
 
 from __future__ import annotations
 
 import concurrent.futures as cf
+import os
 import queue
+import signal
 from typing import Any, Iterable
 
 from sweep.errors import StoreError
-from sweep.executors import JOB_MODULES, Executor
-from sweep.forking import ensure_fork_server
+from sweep.executor_base import Executor, FileShare
+from sweep.loop_core import Verdict
 from workers.job import Job, run_jobs
 
 #: seconds to wait for a worker before scattering a dataset again
@@ -48,31 +48,28 @@ WORKER_WAIT_SECONDS = 120
 #: dask settings for the embedded cluster, in force while the executor lives (a worker that the
 #: nanny restarts gets them too)
 EMBEDDED_CONFIG: dict[str, Any] = {
-    # the run loop counts attempts itself, and runs a retried job alone
+    # the run loop counts attempts itself, and runs a suspect job alone
     "distributed.scheduler.allowed-failures": 0,
     # a job may start processes of its own (e.g. a worker that uses joblib)
     "distributed.worker.daemon": False,
-    # workers fork from a server that has the imports done (see sweep.forking)
-    "distributed.worker.multiprocessing-method": "forkserver",
+    # each worker process ends with the driver, however the driver ends
+    "distributed.worker.preload": ["sweep.lifeline"],
     # checks that only feed the dashboard or a warning, at dask's default 20 ms to 500 ms
     "distributed.admin.tick.interval": "1s",
     "distributed.admin.system-monitor.interval": "5s",
     "distributed.worker.profile.enabled": False,
-    # no HTTP endpoints (metrics, health, the dashboard's pages): nobody can reach this cluster's
-    # random loopback ports, and importing and serving them costs 0.3 s of CPU per run (measured)
+    # no HTTP endpoints (metrics, health, the dashboard's pages): importing and serving them costs
+    # 0.3 s of CPU per run (measured), and they would be reachable without the TLS credentials
     "distributed.scheduler.http.routes": [],
     "distributed.worker.http.routes": [],
     # the nanny's check of the worker's memory against its limit (default 100 ms)
     "distributed.worker.memory.monitor-interval": "500ms",
 }
 
-#: what a dask worker process imports besides the job code (see sweep.forking)
-WORKER_MODULES = ["distributed", "distributed.nanny", "distributed.worker", *JOB_MODULES]
-
 
 class DaskExecutor(Executor):
-    #: the scheduler, the client and the nanny together spend about 13 ms of CPU per task (as in
-    #: sweep.relay): short jobs go 2 s of work to a task
+    #: the scheduler, the client and the nanny together spend about 13 ms of CPU per task
+    #: (measured): short jobs go 2 s of work to a task
     task_seconds = 2.0
 
     def __init__(self, workers: int, scheduler: str | None = None, memory_limit: str | None = None,
@@ -82,7 +79,12 @@ class DaskExecutor(Executor):
 
         self.cluster: Any = None
         self._config: Any = None
+        self._files: FileShare | None = None
+        #: the keys of the tasks that finished (their done-callbacks), and the futures not yet handed back:
+        #: a future the run loop has collected is referenced nowhere any more, so dask forgets its
+        #: result (else a worker's death later makes the scheduler compute it again)
         self._finished: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        self._futures: dict[Any, Any] = {}
         #: fingerprint -> (dataset, the future of its scattered copies)
         self._shared: dict[str, tuple[Any, Any]] = {}
         if scheduler:
@@ -94,10 +96,13 @@ class DaskExecutor(Executor):
             return
         self._config = dask.config.set(EMBEDDED_CONFIG)  # while the cluster lives
         self.cluster = local_cluster(workers, memory_limit)
-        self.client = Client(self.cluster)
+        self.client = Client(self.cluster)  # with the cluster's credentials
         self.workers = workers
+        self._files = FileShare()
 
     def share(self, data: Any) -> Any:
+        if self._files is not None:
+            return self._files.share(data)
         future = self.client.scatter(data, broadcast=True, hash=False)
         self._shared[data.fingerprint] = (data, future)
         return future
@@ -105,7 +110,8 @@ class DaskExecutor(Executor):
     def submit(self, jobs: list[Job], handle: Any) -> Any:
         future = self.client.submit(run_jobs, jobs, self._current(jobs[0].fingerprint, handle), pure=False,
                                     retries=0)
-        future.add_done_callback(self._finished.put)  # also when it errs or is cancelled
+        self._futures[future.key] = future
+        future.add_done_callback(lambda f: self._finished.put(f.key))  # also when it errs or is cancelled
         return future
 
     def _current(self, fingerprint: str, handle: Any) -> Any:
@@ -119,56 +125,61 @@ class DaskExecutor(Executor):
     def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
         # the finished futures arrive through their done-callbacks (see submit): waiting costs the
         # scheduler's event loop nothing, where distributed.wait sets up a waiter per future per call
-        pending = set(futures)
-        done = {f for f in pending if f.done()}
+        self._keep_workers()
+        keys: set[Any] = set()
         try:
-            if not done:
-                done.add(self._finished.get(timeout=timeout))
+            keys.add(self._finished.get(timeout=timeout))
             while True:
-                done.add(self._finished.get_nowait())
+                keys.add(self._finished.get_nowait())
         except queue.Empty:
             pass
-        return done & pending  # the others were collected already (through the first line)
+        pending = set(futures)
+        done = {self._futures.pop(k) for k in keys if k in self._futures}
+        return (done | {f for f in pending if f.done()}) & pending
 
-    def wake(self) -> None:
-        """Make a :meth:`wait` in another thread return now (with what it has)."""
-        self._finished.put(None)  # never among the futures waited for
+    def _keep_workers(self) -> None:
+        """Bring the embedded cluster back to its size should nannies have closed (seen on a loaded
+        machine after several worker deaths in a row: the run then waited for ever)."""
+        if self.cluster is not None and len(self.cluster.workers) < self.workers:
+            self.cluster.scale(self.workers)
 
-    def is_worker_death(self, exc: BaseException) -> bool:
-        from distributed.scheduler import KilledWorker
+    def forget(self, future: Any) -> None:
+        # its result stays on a worker while any client holds the key: released now, a later death of
+        # that worker does not make the scheduler compute the task again
+        future.release()
 
-        return isinstance(exc, (KilledWorker, cf.CancelledError)) or type(exc).__name__ == "CommClosedError"
-
-    def blames_job(self, exc: BaseException) -> bool:
-        from distributed.scheduler import KilledWorker
-
-        return isinstance(exc, KilledWorker)
+    def verdict(self, exc: BaseException) -> Verdict:
+        # KilledWorker: a worker died with the task assigned to it; a worker may hold more than the
+        # task it runs, so which one killed it is not known. Cancelled or a closed connection: the
+        # task's data or the scheduler went away, no fault of the job.
+        if isinstance(exc, cf.CancelledError) or type(exc).__name__ in ("CancelledError", "CommClosedError"):
+            return Verdict.NOT_JOB
+        return Verdict.UNKNOWN
 
     def close(self, *, kill: bool = False, timeout: float | None = None) -> None:
+        if kill and self.cluster is not None:  # stopped: the jobs in flight are given back, not finished
+            for nanny in list(self.cluster.workers.values()):
+                pid = getattr(nanny, "pid", None)
+                if pid:
+                    try:
+                        os.kill(pid, signal.SIGKILL)
+                    except ProcessLookupError:
+                        pass
         self.client.close()
         if self.cluster is not None:
             self.cluster.close(timeout=timeout)
+        if self._files is not None:
+            self._files.remove()
         if self._config is not None:
             self._config.__exit__(None, None, None)
 
 
 def local_cluster(workers: int, memory_limit: str | None) -> Any:
-    """The embedded cluster, in this process: the cluster process (:mod:`sweep.cluster_process`), or
-    a driver that cannot fork it off."""
-    import distributed.nanny  # noqa: F401 - in this process, so in a fork server made from it
-    import distributed.utils
-    import distributed.versions
-    import distributed.worker  # noqa: F401
+    """The embedded cluster: TLS on loopback with credentials made for it alone."""
     from distributed import LocalCluster
+    from distributed.security import Security
 
-    # the package versions every worker reports when it registers and the scheduler and client
-    # check: importlib.metadata lookups, cached per process, 30-60 ms each (measured); looked up once
-    # here, before the fork server is forked, every worker starts with them
-    distributed.versions.get_versions()
-    ensure_fork_server(WORKER_MODULES)
-    distributed.utils._forkserver_preload_set = True  # the preload is ours (no pandas import here)
-    # the scheduler's HTTP server on a free loopback port: never the shared 8787
     return LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, host="127.0.0.1",
-                        protocol="tcp", dashboard_address=None,
-                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+                        protocol="tls", security=Security.temporary(), dashboard_address=None,
+                        scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},  # never the shared 8787
                         memory_limit=memory_limit or "auto", silence_logs=50)

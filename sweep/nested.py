@@ -230,7 +230,7 @@ def nested_summary(selected: Any, outer: Any, blocks: Sequence[tuple[str, Sequen
             naive = means[naive_config] if naive_config is not None else None
             out.append(dict(dataset=dataset, model=label, metric=metric, nested_accuracy=nested,
                             naive_accuracy=naive, optimism=None if nested is None or naive is None else naive - nested,
-                            naive_config=names.get(naive_config, naive_config), naive_config_id=naive_config,
+                            naive_config=names.get(naive_config or "", naive_config), naive_config_id=naive_config,
                             folds=len(folds), folds_selected=len(choices), choices=choices))
     return out
 

@@ -1,4 +1,4 @@
-"""The run loop: claim jobs from the tracker, dispatch them, collect, commit.
+"""The run loop's driver: claim jobs from the tracker, dispatch them, collect, commit.
 
 ::
 
@@ -9,48 +9,74 @@
     submit to executor ─► wait for any ─► batch results ─► commit ──────┘
                                     (every second or 50 results, one transaction)
 
-Jobs that turn out to take milliseconds are sent several to a task (about
-the executor's ``task_seconds`` of work each: its per-task cost must not
-dominate), fewer as the work left shrinks, so that the workers finish
-together ("guided" sizing: a task is at most half of each worker's share of
-the work not yet handed out); jobs of seconds go one to a task.
+The loop's decisions are :class:`sweep.loop_core.LoopCore`'s, a state
+machine without I/O (its module docstring has the states and the rules); this
+module is the thin driver that carries its actions out on the tracker
+(:class:`sweep.store.Store`) and the executor (:mod:`sweep.executors`), and
+turns what happens (outcomes, time, signals) into its events.
 
-Events and what they do: a job finished (its result joins the next commit),
-a job raised (recorded failed with its traceback), its worker process died
-(the job goes back to pending; after ``max_attempts`` deaths it is failed,
-and a job retried after a death runs alone so that the blame is exact), a
-lease is due (renewed for the jobs in hand; the jobs of other drivers whose
-lease expired, or who died on this host, go back to pending, as they also
-do when this driver's own work runs out), Ctrl-C (stop dispatching, commit
-what finished, give the rest back as pending), an error the loop cannot go
-on from, such as the embedded cluster's process dying (the same, then the
-error is raised).
+Signals: SIGINT (Ctrl-C), SIGTERM (what batch schedulers send at the wall
+time) and SIGHUP (a closed terminal) all stop the run the same way: no more
+dispatching, what finished is committed, every held job goes back to pending
+without an attempt, and the command exits with 128 + the signal's number (130,
+143, 129). A second signal exits at once (the jobs still held go back to
+pending at the next run, see ``Store.requeue_stale``).
 """
 
 from __future__ import annotations
 
 import os
 import re
+import signal
 import sys
+import threading
 import time
+from collections import deque
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Mapping, TextIO
 
 from sweep.errors import DatasetError
+from sweep.loop_core import (
+    GUIDED_FRACTION,
+    MAX_BATCH,
+    Action,
+    Claim,
+    Commit,
+    Event,
+    Held,
+    Interrupt,
+    JobsClaimed,
+    LoopCore,
+    Release,
+    Renew,
+    Requeued,
+    RequeueStale,
+    Settings,
+    Start,
+    Stop,
+    Submit,
+    TaskFinished,
+    TaskLost,
+    Tick,
+    Verdict,
+    task_size,
+    task_sizes,
+)
 from sweep.nested import JobRows, inner_progress
 from sweep.plan import Plan, make_plan
 from sweep.spec import Spec, load_spec
 from sweep.store import Claimed, Store, owner_id
 
+__all__ = ["GUIDED_FRACTION", "MAX_BATCH", "Inputs", "RunOptions", "RunSummary", "load_inputs", "open_store",
+           "run_sweep", "sync_store", "task_size", "task_sizes"]
+
 #: seconds a claim is valid without renewal
 LEASE_SECONDS = 60.0
 COMMIT_EVERY_SECONDS = 1.0
 COMMIT_EVERY_RESULTS = 50
-#: the most jobs in one task (short jobs go several to a task; see task_size)
-MAX_BATCH = 64
-#: a task is at most this fraction of each worker's share of the work not yet in a task
-GUIDED_FRACTION = 1 / 2
+#: seconds the driver waits for an outcome before it looks at the clock and the signals
+WAIT_SECONDS = 0.5
 
 
 @dataclass(frozen=True)
@@ -90,6 +116,8 @@ class RunSummary:
     planned_inner: int = 0
     requeued: int = 0
     interrupted: bool = False
+    #: the signal that interrupted the run (SIGINT, SIGTERM, SIGHUP), if any
+    signal: int | None = None
     planning_seconds: float = 0.0
     seconds: float = 0.0
 
@@ -162,27 +190,62 @@ def open_store(spec: Spec, *, create: bool = True) -> Store:
 
 
 def run_sweep(spec_path: str | Path, options: RunOptions | None = None, *,
-              out: TextIO | None = None, cluster: Any = None) -> RunSummary:
+              out: TextIO | None = None) -> RunSummary:
     """Plan, sync and run every pending job of the sweep at ``spec_path``.
 
-    ``cluster``: an embedded dask cluster already started for this run
-    (:func:`sweep.cluster_process.start_for`); else it is started here when the options ask for one.
+    In the main thread, SIGINT, SIGTERM and SIGHUP stop it (see the module docstring) while it
+    runs: the summary then says ``interrupted`` and which ``signal``; before the loop starts
+    they raise :class:`Interrupted`.
     """
     options = options or RunOptions()
     out = out or sys.stderr
     started = time.monotonic()
-    if cluster is None:
-        from sweep.cluster_process import start_for
-
-        cluster = start_for(spec_path, options.backend, options.workers, options.scheduler)
-    try:
-        return _run(spec_path, options, out, started, cluster)
-    finally:
-        if cluster is not None:
-            cluster.stop()  # unless the run used (and stopped) it: nothing to do, or bad input
+    with Signals() as signals:
+        return _run(spec_path, options, out, started, signals)
 
 
-def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, cluster: Any) -> RunSummary:
+class Interrupted(KeyboardInterrupt):
+    """A stopping signal that arrived before the run loop started (nothing held yet)."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signal.Signals(signum).name)
+        self.signum = signum
+
+
+class Signals:
+    """SIGINT, SIGTERM and SIGHUP while a run lasts: the first is noted (``received``) for the
+    loop to stop on, or raised as :class:`Interrupted` while the loop is not running
+    (``deferred`` false); a second ends the process at once with 128 + its number."""
+
+    NAMES = ("SIGINT", "SIGTERM", "SIGHUP")
+
+    def __init__(self) -> None:
+        self.received: int | None = None
+        self.deferred = False
+        self._old: dict[int, Any] = {}
+
+    def __enter__(self) -> Signals:
+        if threading.current_thread() is threading.main_thread():
+            for name in self.NAMES:
+                number = getattr(signal, name, None)
+                if number is not None:
+                    self._old[number] = signal.signal(number, self._handle)
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        for number, old in self._old.items():
+            signal.signal(number, old)
+
+    def _handle(self, signum: int, frame: Any) -> None:
+        if self.received is not None:
+            os.write(2, f"foldsweep: {signal.Signals(signum).name} again: exiting now\n".encode())
+            os._exit(128 + signum)
+        self.received = signum
+        if not self.deferred:
+            raise Interrupted(signum)
+
+
+def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float, signals: Signals) -> RunSummary:
     inputs = load_inputs(spec_path)
     store = open_store(inputs.spec)
     try:
@@ -197,11 +260,12 @@ def _run(spec_path: str | Path, options: RunOptions, out: TextIO, started: float
         if counts["pending"] == 0:
             _finish(summary, counts, started)
             return summary
-        loop = _Loop(store, inputs, options, out, cluster)
+        loop = _Loop(store, inputs, options, out, signals)
         try:
             loop.run(counts)
         finally:
-            summary.ran, summary.interrupted = loop.ran, loop.interrupted
+            summary.ran, summary.interrupted = loop.core.ran, loop.interrupted
+            summary.signal = signals.received if loop.interrupted else None
         _finish(summary, store.counts(inputs.spec.name), started)
         return summary
     finally:
@@ -215,33 +279,29 @@ def _finish(summary: RunSummary, counts: Mapping[str, int], started: float) -> N
 
 
 class _Loop:
-    """One driver's dispatch loop over the tracker (see the module docstring)."""
+    """The driver of one run: carries :class:`LoopCore`'s actions out on the tracker and the
+    executor, and feeds it the outcomes, the time and the signals as events."""
 
-    def __init__(self, store: Store, inputs: Inputs, options: RunOptions, out: TextIO,
-                 cluster: Any = None) -> None:
+    def __init__(self, store: Store, inputs: Inputs, options: RunOptions, out: TextIO, signals: Signals) -> None:
         from sweep.executors import make_executor
 
-        self.store, self.inputs, self.options, self.out = store, inputs, options, out
+        self.store, self.inputs, self.options, self.out, self.signals = store, inputs, options, out, signals
         self.spec = inputs.spec
         self.owner = owner_id()
         workers = options.workers or os.cpu_count() or 1
-        # the executor may fork this process (sweep.forking): no database connection is copied
-        store.drop_connections()
         self.executor = make_executor(options.backend, workers, scheduler=options.scheduler,
-                                      memory_limit=self.spec.memory_limit, cluster=cluster,
-                                      **options.executor_options)
-        self.job_seconds: float | None = None
-        self.unclaimed = 0  # pending jobs not yet claimed, as far as this driver knows
+                                      memory_limit=self.spec.memory_limit, **options.executor_options)
+        self.core = LoopCore(Settings(workers=self.executor.workers, task_seconds=self.executor.task_seconds,
+                                      max_attempts=self.spec.max_attempts, lease_seconds=options.lease_seconds,
+                                      claim=options.claim, commit_seconds=COMMIT_EVERY_SECONDS,
+                                      commit_results=COMMIT_EVERY_RESULTS))
+        self.claims: dict[str, Claimed] = {}
+        self.tasks: dict[Any, int] = {}  # future -> the core's task number
         self.configs = inputs.plan.by_config
         self.rows = JobRows(store, inputs.plan, inputs.datasets)
         self.handles: dict[str, Any] = {}
-        self.inflight: dict[Any, list[Claimed]] = {}
-        self.isolated: list[Claimed] = []
-        self.finished: list[Any] = []
-        self.give_up: dict[str, str] = {}
-        self.ran = 0
         self.interrupted = False
-        self.exhausted = False
+        self.stopped = False
 
     def run(self, counts: Mapping[str, int]) -> None:
         from sweep.progress import Progress
@@ -249,121 +309,98 @@ class _Loop:
         inner, self.inner_keys = inner_progress(self.store, self.inputs.plan, self.spec.name)
         self.progress = Progress(sum(counts.values()), counts["done"], counts["failed"],
                                  mode=self.options.progress, stream=self.out, inner=inner)
-        self.unclaimed = counts["pending"]
-        last_commit = last_renew = time.monotonic()
+        self.signals.deferred = True  # from here a signal is an event of the loop
         try:
-            while True:
-                self._dispatch()
-                if not self.inflight:
-                    if self._requeue_stale():  # a dead driver's jobs, found once ours ran out
-                        continue
-                    break
-                for future in self.executor.wait(self.inflight, timeout=0.5):
-                    self._collect(future)
-                now = time.monotonic()
-                if len(self.finished) >= COMMIT_EVERY_RESULTS or now - last_commit >= COMMIT_EVERY_SECONDS:
-                    self._commit()
-                    last_commit = now
-                if now - last_renew >= self.options.lease_seconds / 3:
-                    self.store.renew(self.owner, [c.key for batch in self.inflight.values() for c in batch],
-                                     self.options.lease_seconds)
-                    self._requeue_stale()
-                    last_renew = now
-            self._commit()
-            self.executor.close()
-        except KeyboardInterrupt:
-            self.interrupted = True
-            self._stop()
-        except Exception:
+            events: deque[Event] = deque([Start(time.monotonic(), counts["pending"])])
+            while not self.stopped:
+                while events and not self.stopped:
+                    answers = [a for a in map(self._do, self.core.handle(events.popleft())) if a is not None]
+                    # an answer (jobs claimed, jobs re-queued) comes before any event still waiting, so that
+                    # the core never decides on, say, an interrupt while a claim it made is unknown to it
+                    events.extendleft(reversed(answers))
+                if not self.stopped:
+                    events.extend(self._wait())
+        except BaseException:
             self._abandon()
             raise
         finally:
+            self.signals.deferred = False
             self.progress.close()
 
-    def _requeue_stale(self) -> int:
-        """Give back to pending the jobs of drivers that died or lost touch (expired leases)."""
-        requeued = self.store.requeue_stale(self.spec.name)
-        if requeued:
-            self.exhausted = False
-            self.unclaimed += requeued
-        return requeued
-
-    def _stop(self) -> None:
+    def _wait(self) -> list[Event]:
+        """Outcomes of the tasks that finished, then the time (a tick) or the interrupt."""
+        if self.signals.received is None:
+            done = self.executor.wait(self.tasks, timeout=WAIT_SECONDS) if self.tasks else set()
+            events = [self._outcome(f) for f in done]
+        else:
+            events = []
+        now = time.monotonic()
+        if self.signals.received is None:
+            return events + [Tick(now)]
+        # interrupted: what finished is committed; the rest, lost or not, goes back without an attempt
         print("interrupted: committing finished jobs, giving the rest back as pending", file=self.out, flush=True)
-        for future in [f for f in self.inflight if f.done()]:
-            try:
-                self._collect(future)
-            except KeyboardInterrupt:  # Ctrl-C reached its worker too (the whole process group):
-                pass  # its jobs are given back below, with every other one still held
-        self._give_back()
+        finished = [e for e in events if isinstance(e, TaskFinished)]
+        finished += [e for e in (self._outcome(f) for f in [f for f in self.tasks if f.done()])
+                     if isinstance(e, TaskFinished)]
+        return [*finished, Interrupt(now)]
 
-    def _abandon(self) -> None:
-        """After an error the loop cannot go on from (the embedded cluster stopped, the store
-        failed): keep what finished, give the rest back as pending, as far as the store still
-        lets it (else the leases expire, and the next run re-queues those jobs)."""
+    def _outcome(self, future: Any) -> Event:
+        task = self.tasks.pop(future)
+        now = time.monotonic()
         try:
-            self._give_back()
-        except Exception:  # noqa: BLE001 - the error being raised says what went wrong
-            pass
-
-    def _give_back(self) -> None:
-        """Commit what finished, give back as pending every job still held (including jobs
-        claimed but not yet submitted), and stop the executor."""
-        try:
-            self._commit()
-            self.store.release_all(self.owner)
+            return self._read(future, task, now)
         finally:
-            self.executor.close(kill=True)
+            self.executor.forget(future)
 
-    @property
-    def window(self) -> int:
-        """Jobs to hold at once: ``--claim``, else four tasks per worker (one job per worker until
-        the first results tell how long a job takes)."""
-        if self.options.claim:
-            return self.options.claim
-        if self.job_seconds is None:
-            return self.executor.workers
-        batch = task_size(self.unclaimed, self.job_seconds, self.executor.task_seconds, self.executor.workers)
-        return 4 * self.executor.workers * batch
+    def _read(self, future: Any, task: int, now: float) -> Event:
+        try:
+            return TaskFinished(now, task, tuple(future.result()))
+        except KeyboardInterrupt:  # Ctrl-C reached the worker too (the whole process group)
+            if self.signals.received is None:
+                self.signals.received = signal.SIGINT
+            return TaskLost(now, task, Verdict.NOT_JOB, "interrupted")
+        except BaseException as exc:  # noqa: BLE001 - the worker died or the engine lost the task
+            verdict = self.executor.verdict(exc)
+            what = "task lost" if verdict is Verdict.NOT_JOB else "worker process died"
+            return TaskLost(now, task, verdict, f"{what} ({type(exc).__name__}: {_death_message(exc)})")
 
-    def _dispatch(self) -> None:
-        held = [c for batch in self.inflight.values() for c in batch]
-        if any(c.attempts > 1 for c in held):
-            return  # a job retried after a worker death runs alone
-        if not self.isolated and not self.exhausted and len(held) <= self.window // 2:
-            wanted = self.window - len(held)
-            if self.unclaimed <= wanted + self.window // 2:
-                wanted = max(wanted, self.unclaimed)  # the last few too, not in a round of their own
-            claimed = self.store.claim(self.spec.name, self.owner, wanted,
-                                       self.options.lease_seconds, self.spec.max_attempts)
-            self.exhausted = not claimed
-            # fewer than asked: the rest went to other drivers
-            self.unclaimed = max(0, self.unclaimed - len(claimed)) if len(claimed) == wanted else 0
-            self.isolated.extend(c for c in claimed if c.attempts > 1)
-            for batch in self._batches([c for c in claimed if c.attempts == 1]):
-                self._submit(batch)
-        if self.isolated and not self.inflight:
-            self._submit([self.isolated.pop(0)])
+    def _do(self, action: Action) -> Event | None:
+        """Carry ``action`` out; the answer it gets, as an event for the core, if any."""
+        if isinstance(action, Claim):
+            claimed = self.store.claim(self.spec.name, self.owner, action.count, self.options.lease_seconds,
+                                       self.spec.max_attempts)
+            self.claims.update((c.key, c) for c in claimed)
+            return JobsClaimed(time.monotonic(), tuple(Held(c.key, c.fingerprint, c.attempts) for c in claimed),
+                               action.count)
+        if isinstance(action, Submit):
+            self._submit(action)
+        elif isinstance(action, Commit):
+            self.store.commit_results(self.owner, list(action.results), dict(action.give_up))
+            ok = sum(r.ok for r in action.results)
+            inner = sum(r.key in self.inner_keys for r in action.results) + sum(k in self.inner_keys
+                                                                             for k, _ in action.give_up)
+            self.progress.update(done=ok, failed=len(action.results) - ok + len(action.give_up), inner=inner)
+            self._drop([r.key for r in action.results] + [k for k, _ in action.give_up])
+        elif isinstance(action, Release):
+            self.store.release(self.owner, list(action.keys), count_attempt=action.count_attempt)
+            self._drop(action.keys)
+        elif isinstance(action, Renew):
+            self.store.renew(self.owner, list(action.keys), self.options.lease_seconds)
+        elif isinstance(action, RequeueStale):
+            return Requeued(time.monotonic(), self.store.requeue_stale(self.spec.name))
+        elif isinstance(action, Stop):
+            self.stopped, self.interrupted = True, action.interrupted
+            self.executor.close(kill=action.interrupted)
+        return None
 
-    def _batches(self, claimed: list[Claimed]) -> list[list[Claimed]]:
-        """Tasks of :func:`task_sizes` jobs, each on one dataset (the executors run tasks in the
-        order submitted, so the small ones come last)."""
-        by_data: dict[str, list[Claimed]] = {}
-        for c in claimed:
-            by_data.setdefault(c.fingerprint, []).append(c)
-        tasks, unassigned = [], self.unclaimed + len(claimed)
-        for group in by_data.values():
-            start = 0
-            for size in task_sizes(len(group), unassigned, self.job_seconds, self.executor.task_seconds,
-                                   self.executor.workers):
-                tasks.append(group[start:start + size])
-                start += size
-            unassigned -= len(group)
-        return tasks
+    def _drop(self, keys: Any) -> None:
+        for key in keys:
+            self.claims.pop(key, None)
 
-    def _submit(self, batch: list[Claimed]) -> None:
+    def _submit(self, action: Submit) -> None:
         from workers.job import Job
 
+        batch = [self.claims[k] for k in action.keys]
         fp = batch[0].fingerprint
         if fp not in self.handles:
             self.handles[fp] = self.executor.share(self.inputs.datasets[batch[0].dataset])
@@ -373,75 +410,26 @@ class _Loop:
             test, train = self.rows(c)
             jobs.append(Job(key=c.key, worker=config.worker, params=dict(config.params), dataset=c.dataset,
                             fingerprint=fp, repeat=c.repeat, fold=c.fold,
-                            test_index=test, time_limit=self.spec.time_limit, train_index=train))
-        self.inflight[self.executor.submit(jobs, self.handles[fp])] = batch
+                            test_index=test, time_limit=self.spec.time_limit, train_index=train,
+                            folds_seed=self.spec.folds.seed))
+        self.tasks[self.executor.submit(jobs, self.handles[fp])] = action.task
 
-    def _collect(self, future: Any) -> None:
-        batch = self.inflight.pop(future)
+    def _abandon(self) -> None:
+        """After an error the loop cannot go on from (the store failed, the cluster went away) or
+        a second Ctrl-C: keep what finished, give the rest back as pending, as far as the store
+        still lets it (else the leases expire, and the next run re-queues those jobs)."""
+        if self.stopped:
+            return
+        self.stopped = True
         try:
-            results = future.result()
-        except BaseException as exc:  # noqa: BLE001 - the worker died or the engine lost the task
-            if not self.executor.is_worker_death(exc) and not isinstance(exc, Exception):
-                raise
-            for claimed in batch:
-                self._worker_died(claimed, exc)
-            return
-        self.finished.extend(results)
-        self.ran += len(results)
-        self._learn_job_seconds(results)
-
-    def _learn_job_seconds(self, results: list[Any]) -> None:
-        seconds = sum(r.finished_at - r.started_at for r in results) / len(results)
-        self.job_seconds = seconds if self.job_seconds is None else 0.8 * self.job_seconds + 0.2 * seconds
-
-    def _worker_died(self, claimed: Claimed, exc: BaseException) -> None:
-        kind = getattr(exc, "kind", type(exc).__name__)  # a relayed loss names the engine's exception
-        reason = f"worker process died ({kind}: {_death_message(exc)})"
-        blamed = self.executor.blames_job(exc)
-        if blamed and claimed.attempts >= self.spec.max_attempts:
-            self.give_up[claimed.key] = f"{reason}; gave up after {claimed.attempts} attempts"
-        else:
-            self.store.release(self.owner, [claimed.key], count_attempt=blamed)
-            self.exhausted = False
-            self.unclaimed += 1
-
-    def _commit(self) -> None:
-        if not self.finished and not self.give_up:
-            return
-        self.store.commit_results(self.owner, self.finished, self.give_up)
-        ok = sum(r.ok for r in self.finished)
-        inner = sum(r.key in self.inner_keys for r in self.finished) + sum(k in self.inner_keys for k in self.give_up)
-        self.progress.update(done=ok, failed=len(self.finished) - ok + len(self.give_up), inner=inner)
-        self.finished, self.give_up = [], {}
-
-
-def task_size(unassigned: int, job_seconds: float | None, task_seconds: float, workers: int) -> int:
-    """Jobs for the next task while ``unassigned`` jobs are in no task yet, a job taking
-    ``job_seconds`` (None: not known yet, one job a task).
-
-    About ``task_seconds`` of work, but at most :data:`GUIDED_FRACTION` of each of the
-    ``workers``' share of the unassigned work, so that tasks shrink towards the end of a sweep
-    and no worker is left with a long task while the others idle; at most :data:`MAX_BATCH`
-    jobs and at least one.
-    """
-    if job_seconds is None:
-        return 1
-    job = max(job_seconds, 1e-4)
-    seconds = min(task_seconds, GUIDED_FRACTION * unassigned * job / workers)
-    return max(1, min(MAX_BATCH, int(seconds / job)))
-
-
-def task_sizes(jobs: int, unassigned: int, job_seconds: float | None, task_seconds: float,
-               workers: int) -> list[int]:
-    """The sizes, in order, of the tasks that ``jobs`` jobs are cut into (:func:`task_size`;
-    ``unassigned`` counts these jobs too)."""
-    sizes: list[int] = []
-    while jobs > 0:
-        size = min(jobs, task_size(unassigned, job_seconds, task_seconds, workers))
-        sizes.append(size)
-        jobs -= size
-        unassigned -= size
-    return sizes
+            for action in self.core.abandon():
+                if not isinstance(action, Stop):
+                    self._do(action)
+            self.store.release_all(self.owner)
+        except Exception:  # noqa: BLE001 - the error being raised says what went wrong
+            pass
+        finally:
+            self.executor.close(kill=True)
 
 
 def _death_message(exc: BaseException) -> str:

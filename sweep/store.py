@@ -19,7 +19,7 @@ job it plans, whoever ran it.
 
 Job states: ``pending`` → ``running`` (claimed by an owner with a lease) →
 ``done`` | ``failed``. A running job whose lease expired, or whose owner
-process on this host is gone, goes back to ``pending``. Only the driver
+process is certainly gone (:mod:`sweep.identity`), goes back to ``pending``. Only the driver
 writes, in batched transactions; a result row and its job's ``done`` state
 are written in the same transaction, so a kill at any moment leaves either
 both or neither.
@@ -37,9 +37,9 @@ from __future__ import annotations
 
 import json
 import os
+import secrets
 import socket
 import time
-import uuid
 from dataclasses import dataclass
 from typing import Any, Iterable, Literal, Mapping, Sequence
 from urllib.parse import quote
@@ -164,8 +164,10 @@ class Claimed:
 
 
 def owner_id() -> str:
-    """Identity of this driver process: host, pid and a random token."""
-    return f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+    """Identity of this driver process (:func:`sweep.identity.owner_id`)."""
+    from sweep.identity import owner_id
+
+    return owner_id()
 
 
 class Store:
@@ -193,6 +195,8 @@ class Store:
         path = sqlite_path(url)
         if path is not None:
             _check_sqlite_file(path, create)
+            if create and not os.path.exists(path):
+                _create_sqlite_file(path)
         check = path is not None and create and os.path.exists(path)  # a file made before: check it first
         engine = _engine(url, readonly=not create)
         try:
@@ -251,7 +255,7 @@ class Store:
             raise StoreError(f"{_where(self.url)}: this database holds other tables and is not a "
                              "foldsweep store; point 'store' at a new file or database")
         with self.reader.connect() as conn:
-            value = conn.execute(sa.select(meta_table.c.value)
+            value: Any = conn.execute(sa.select(meta_table.c.value)
                                  .where(meta_table.c.name == "schema_version")).scalar()
         try:
             return int(value)
@@ -271,8 +275,7 @@ class Store:
         with self.engine.begin() as conn:
             if conn.dialect.name == "postgresql":  # two drivers creating one store: one at a time
                 conn.exec_driver_sql("SELECT pg_advisory_xact_lock(2718281828)")
-            metadata.create_all(conn)
-            _insert_new(conn, meta_table, [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+            _create_schema(conn)
 
     # ---- registering what a plan needs ----------------------------------------------------
 
@@ -351,7 +354,7 @@ class Store:
                 sa.select(m.key, m.dataset, m.active).where(m.sweep == sweep)).cursor.fetchall()}
             joining = [j for k, j in wanted.items() if k not in have]
             new = joining
-            stored = conn.execute(sa.select(sa.func.count()).select_from(jobs_table)).scalar()
+            stored = conn.execute(sa.select(sa.func.count()).select_from(jobs_table)).scalar() or 0
             if joining and stored > len(have):  # a store shared by several specs: some keys may be planned already
                 elsewhere = self._keys_stored(conn, [j.key for j in joining])
                 new = [j for j in joining if j.key not in elsewhere]
@@ -386,7 +389,7 @@ class Store:
                  .select_from(sweep_jobs_table.join(jobs_table, jobs_table.c.key == m.key))
                  .where(m.sweep == sweep, m.active, *only).group_by(jobs_table.c.state))
         with self.reader.connect() as conn:
-            found = dict(conn.execute(query).all())
+            found: dict[str, int] = {str(s): int(n) for s, n in conn.execute(query).all()}
         return {state: int(found.get(state, 0)) for state in STATES}
 
     def requeue_stale(self, sweep: str, now: float | None = None) -> int:
@@ -496,6 +499,20 @@ class Store:
 
     # ---- reading ---------------------------------------------------------------------------
 
+    def held_by_gone(self, keys: Sequence[str], now: float | None = None) -> set[str]:
+        """The keys among ``keys`` of running jobs whose driver is gone (its lease expired, or it is
+        certainly dead: :func:`sweep.identity.is_gone`); the next run gives them back to pending."""
+        now = time.time() if now is None else now
+        j = jobs_table.c
+        gone: set[str] = set()
+        with self.reader.connect() as conn:
+            for chunk in _chunks(list(keys), 900):
+                for key, owner, lease in conn.execute(sa.select(j.key, j.owner, j.lease_expires)
+                                                      .where(j.key.in_(chunk), j.state == "running")):
+                    if (lease is not None and lease < now) or _dead_here(owner, ""):
+                        gone.add(key)
+        return gone
+
     def job_states(self, keys: Sequence[str]) -> dict[str, tuple[str, str | None, bool]]:
         """key -> (state, error, timed_out) of the stored jobs among ``keys`` (whichever sweeps plan them)."""
         j = jobs_table.c
@@ -531,7 +548,7 @@ class Store:
         with self.reader.connect() as conn:
             result = conn.execute(query)
             # plain DBAPI tuples: a million SQLAlchemy Row objects cost more than the query itself
-            return result.cursor.fetchall(), list(result.keys())
+            return list(result.cursor.fetchall()), list(result.keys())
 
     def versions(self, *, scheme: str, fingerprints: Sequence[str], repeats: int,
                  k: int) -> dict[tuple[str, str], int]:
@@ -645,7 +662,7 @@ def _insert_new(conn: sa.Connection, table: sa.Table, rows: Sequence[Mapping[str
     if conn.dialect.name == "sqlite":
         from sqlalchemy.dialects.sqlite import insert
     elif conn.dialect.name == "postgresql":
-        from sqlalchemy.dialects.postgresql import insert
+        from sqlalchemy.dialects.postgresql import insert  # type: ignore[assignment]
     else:
         conn.execute(sa.insert(table), list(rows))
         return
@@ -686,6 +703,34 @@ def sqlite_path(url: str) -> str | None:
         raise StoreError(f"store {url!r}: an in-memory SQLite database keeps nothing after the command ends; "
                          "give a file path (store = \"sweep.sqlite\") or a sqlite:////absolute/path URL")
     return os.path.abspath(parsed.database)
+
+
+def _create_schema(conn: sa.Connection) -> None:
+    metadata.create_all(conn)
+    _insert_new(conn, meta_table, [{"name": "schema_version", "value": str(SCHEMA_VERSION)}])
+
+
+def _create_sqlite_file(path: str) -> None:
+    """Make a new SQLite store whole before it appears under its name: built in a temporary file in
+    the same folder, then hard-linked into place. A driver starting at the same instant sees either
+    no file or a complete store, never the empty file SQLite writes first (refused as damaged)."""
+    tmp = f"{path}.new-{os.getpid()}-{secrets.token_hex(4)}"
+    engine = sa.create_engine(sa.engine.URL.create("sqlite", database=tmp))
+    try:
+        with engine.begin() as conn:
+            _create_schema(conn)
+    finally:
+        engine.dispose()
+    try:
+        os.link(tmp, path)  # fails if another driver linked its store first: that one is used
+    except FileExistsError:
+        pass
+    except OSError:  # a file system without hard links: a rename, unless a store appeared meanwhile
+        if not os.path.exists(path):
+            os.rename(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
 
 
 def _check_sqlite_file(path: str, create: bool) -> None:
@@ -753,18 +798,11 @@ def _sqlite_begin(conn: sa.Connection) -> None:
 
 
 def _dead_here(owner: str | None, host: str) -> bool:
-    if not owner:
-        return True
-    parts = owner.split(":")
-    if len(parts) < 3 or parts[0] != host or not parts[1].isdigit():
-        return False
-    try:
-        os.kill(int(parts[1]), 0)
-    except ProcessLookupError:
-        return True
-    except PermissionError:
-        return False
-    return False
+    """Whether ``owner`` is certainly gone (``host`` is unused: :func:`sweep.identity.is_gone` checks
+    the host along with the boot and the PID namespace)."""
+    from sweep.identity import is_gone
+
+    return is_gone(owner)
 
 
 def _chunks(items: Sequence[Any], size: int) -> Iterable[Sequence[Any]]:

@@ -66,3 +66,27 @@ SLOW_CENTROID = Worker(
         "build_delay": Param("float", 0.0, low=0.0, high=60.0, doc="seconds building the estimator takes"),
     },
 )
+
+
+class _SeedEcho:
+    """Predicts the majority class and reports the seed it was built with (the seed tests read it back)."""
+
+    def __init__(self, params: dict[str, Any]) -> None:
+        self.random_state = params["random_state"]
+
+    def fit(self, X: np.ndarray, y: np.ndarray) -> _SeedEcho:
+        self.majority_ = int(np.bincount(y).argmax())
+        return self
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        return np.full(len(X), self.majority_)
+
+
+SEED_ECHO = Worker(
+    name="seed_echo", version="1", build=lambda params, data: _SeedEcho(params),
+    report=lambda est, X_test: {"figures": {"seed": est.random_state}, "model_text": None},
+    params={
+        "random_state": Param("int", None, low=0, high=2**31 - 1, nullable=True, doc="seed; none: derived per fold"),
+        "label": Param("str", "a", doc="a parameter that only makes configurations differ"),
+    },
+)

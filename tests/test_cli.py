@@ -159,7 +159,7 @@ def demo(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 @pytest.mark.slow
 def test_small_sweep_runs_to_completion_and_rerun_has_nothing_to_do(demo: Path) -> None:
-    assert status(demo) == {"total": DEMO_JOBS, "done": DEMO_JOBS, "failed": 0, "pending": 0, "running": 0,
+    assert status(demo) == {"total": DEMO_JOBS, "done": DEMO_JOBS, "failed": 0, "pending": 0, "running": 0, "gone": 0,
                             "failures": {}}
     again = ok(run_foldsweep("run", demo, "--workers", "2"))
     assert "nothing left to do" in again.stdout and f"{DEMO_JOBS} done" in again.stdout
@@ -245,7 +245,7 @@ def test_kill_9_midway_then_resume_loses_and_duplicates_nothing(tmp_path: Path) 
 def test_growing_a_grid_runs_only_the_new_cells(tmp_path: Path) -> None:
     spec = write_spec(tmp_path, one_dataset("{ n_features = [1, 2] }"))
     db = spec.with_suffix(".sqlite")
-    assert counts(spec) == {"total": 6, "done": 0, "failed": 0, "pending": 6, "running": 0}  # before any run
+    assert counts(spec) == {"total": 6, "done": 0, "failed": 0, "pending": 6, "running": 0, "gone": 0}  # before any run
     rows = ("SELECT r.key, r.accuracy, r.finished_at, c.params FROM results r JOIN jobs j ON j.key = r.key "
             "JOIN configurations c ON c.config_id = j.config_id")
     assert run_json(spec, "--workers", "1")["ran"] == 2 * 3

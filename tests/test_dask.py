@@ -1,11 +1,10 @@
 """The dask.distributed backend, end to end through the real ``foldsweep`` command.
 
-- an embedded LocalCluster of 2 worker processes over TCP on loopback gives the same result rows
-  as the joblib backend, whether it runs in a process of its own (the command) or, where the
-  driver cannot fork safely, inside the driver;
-- an existing cluster (a LocalCluster started here, its scheduler in this process) reached with
-  ``--scheduler tcp://127.0.0.1:PORT`` gives the same rows, runs every job there, and receives each
-  dataset once (one scatter per dataset, counted at the scheduler), not once per job.
+- an embedded LocalCluster of 2 worker processes over TLS on loopback gives the same result rows
+  as the joblib backend; it refuses a client without its credentials (none, or TLS of its own);
+- an existing TLS-secured cluster (a LocalCluster started here, its scheduler in this process)
+  reached with ``--scheduler tls://127.0.0.1:PORT`` and its credentials in dask's configuration
+  gives the same rows, runs every job there, and receives each dataset once (one scatter per dataset, counted at the scheduler), not once per job.
 """
 
 from __future__ import annotations
@@ -48,11 +47,11 @@ def _ok(proc: Any) -> Any:
     return proc
 
 
-def _run(folder: Path, *extra: str) -> tuple[Path, dict[str, Any]]:
+def _run(folder: Path, *extra: str, env: dict[str, str] | None = None) -> tuple[Path, dict[str, Any]]:
     folder.mkdir(parents=True, exist_ok=True)
     spec = folder / "sweep.toml"
     spec.write_text(SPEC)
-    proc = _ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra))
+    proc = _ok(run_foldsweep("run", spec, "--json", "--progress", "none", *extra, env=env))
     return spec, json.loads(proc.stdout.strip().splitlines()[-1])
 
 
@@ -82,27 +81,30 @@ def test_local_cluster_gives_the_joblib_rows(tmp_path: Path, joblib_rows: list[d
     assert "nothing left to do" in again.stdout and again.stderr == "", again.stderr
 
 
-def test_cluster_in_the_driver_when_it_cannot_fork(tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
-    # a driver with another thread running must not fork (the child could inherit a held lock):
-    # the embedded cluster then runs inside it, with the same results (common practice, as above)
-    import threading
+def test_embedded_cluster_refuses_a_client_without_its_credentials() -> None:
+    # the embedded cluster runs code sent to it as the sweep's user: another local user must not be
+    # able to send any (dask's TLS with per-cluster credentials; common practice for a server that
+    # runs code: authenticate the client)
+    from distributed import Client
+    from distributed.security import Security
 
-    from sweep.cluster_process import ClusterProcess
-    from sweep.run import RunOptions, run_sweep
+    from sweep.dask_executor import DaskExecutor
 
-    spec = tmp_path / "sweep.toml"
-    spec.write_text(SPEC)
-    stop = threading.Event()
-    other = threading.Thread(target=stop.wait, daemon=True)
-    other.start()
+    executor = DaskExecutor(1)
     try:
-        assert ClusterProcess.start(2, None) is None
-        summary = run_sweep(spec, RunOptions(backend="dask", workers=2, progress="none"))
+        address = executor.cluster.scheduler_address
+        assert address.startswith("tls://127.0.0.1:")
+        assert executor.client.submit(sum, [1, 2]).result(timeout=60) == 3  # its own client is let in
+        attempts = {"no credentials": dict(address=address),
+                    "plain TCP": dict(address=address.replace("tls://", "tcp://")),
+                    "TLS credentials of another cluster": dict(address=address, security=Security.temporary())}
+        for what, kwargs in attempts.items():
+            with pytest.raises((OSError, TypeError, TimeoutError)):
+                client = Client(**kwargs, timeout=5)
+                client.close()
+                raise AssertionError(f"{what}: connected")
     finally:
-        stop.set()
-        other.join()
-    assert (summary.done, summary.failed, summary.ran) == (JOBS, 0, JOBS)
-    assert _rows(spec) == joblib_rows
+        executor.close()
 
 
 class _Counter:
@@ -135,15 +137,26 @@ class _Counter:
 
 def test_existing_scheduler_runs_the_jobs_and_receives_each_dataset_once(
         tmp_path: Path, joblib_rows: list[dict[str, Any]]) -> None:
+    # a TLS-secured scheduler, its credentials given to foldsweep as the README shows (dask's own
+    # configuration, through environment variables)
     from distributed import LocalCluster
+    from distributed.security import Security
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tcp",
-                      dashboard_address=None, scheduler_kwargs={"dashboard_address": "127.0.0.1:0"},
+    security = Security.temporary()
+    files = {"CA_FILE": security.tls_ca_file, "CLIENT__CERT": security.tls_client_cert,
+             "CLIENT__KEY": security.tls_client_key}
+    env = {"DASK_DISTRIBUTED__COMM__REQUIRE_ENCRYPTION": "True"}
+    for name, pem in files.items():
+        path = tmp_path / f"{name.lower()}.pem"
+        path.write_text(pem)
+        env[f"DASK_DISTRIBUTED__COMM__TLS__{name}"] = str(path)
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", protocol="tls",
+                      security=security, dashboard_address=None, scheduler_kwargs={"dashboard_address": None},
                       silence_logs=50) as cluster:
         counter = _Counter(cluster.scheduler)
         address = cluster.scheduler_address
-        assert address.startswith("tcp://127.0.0.1:")
-        spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address)
+        assert address.startswith("tls://127.0.0.1:")
+        spec, summary = _run(tmp_path, "--backend", "dask", "--scheduler", address, env=env)
         assert (summary["done"], summary["failed"], summary["ran"]) == (JOBS, 0, JOBS)
         # every fold job ran on this cluster: the driver has no other executor, and the tasks it sent
         # (one or more jobs each: jobs of milliseconds are batched) all finished there
@@ -167,38 +180,3 @@ def test_unreachable_scheduler_is_one_line_exit_2(tmp_path: Path) -> None:
     assert proc.returncode == 2, proc.stderr
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1 and "cannot reach the dask scheduler" in lines[0], proc.stderr
-
-
-@pytest.mark.slow
-def test_driver_sigkilled_leaves_no_cluster_process_behind(tmp_path: Path) -> None:
-    # common practice: a killed parent must not leave its helper processes running (orphans would
-    # keep cores and memory, and hold the terminal's output open)
-    import os
-    import signal
-    import time
-
-    import psutil
-
-    from tests.conftest import start_foldsweep
-    from tests.test_cli import one_dataset
-
-    spec = tmp_path / "slow.toml"
-    spec.write_text(one_dataset("{ n_features = [1, 2, 3, 4] }"))
-    proc = start_foldsweep("run", spec, "--backend", "dask", "--workers", "2", "--progress", "none",
-                           env={"FOLDSWEEP_TEST_DELAY": "0.5"})
-    try:
-        driver = psutil.Process(proc.pid)
-        deadline = time.monotonic() + 60
-        helpers: list[psutil.Process] = []
-        while time.monotonic() < deadline and len(helpers) < 4:  # cluster process, fork server, 2 workers
-            time.sleep(0.2)
-            helpers = [p for p in driver.children(recursive=True) if "resource_tracker" not in " ".join(p.cmdline())]
-        assert len(helpers) >= 4, [p.cmdline() for p in helpers]
-        os.kill(proc.pid, signal.SIGKILL)
-        proc.communicate(timeout=60)
-        gone, alive = psutil.wait_procs(helpers, timeout=20)
-        assert alive == [], [(p.pid, p.cmdline()) for p in alive]
-    finally:
-        if proc.poll() is None:
-            os.killpg(proc.pid, signal.SIGKILL)
-            proc.communicate()

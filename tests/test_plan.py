@@ -78,7 +78,7 @@ def test_hand_computed_keys(tmp_path: Path) -> None:
                                        k=3, repeats=2, seed=7))
     (config,) = plan.configurations
     # the canonical text written out by hand: every declared parameter, sorted, compact JSON
-    text = 'decision_tree|{"criterion":"gini","max_depth":3,"min_samples_leaf":1,"random_state":0}'
+    text = 'decision_tree|{"criterion":"gini","max_depth":3,"min_samples_leaf":1,"random_state":null}'
     assert config.config_id == hashlib.sha256(text.encode()).hexdigest()[:10]
     assert config_id("decision_tree", dict(config.params)) == config.config_id
     job = next(j for j in plan.jobs if j.dataset == "syn" and j.repeat == 1 and j.fold == 2)

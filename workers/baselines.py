@@ -12,7 +12,8 @@ from typing import Any, Callable
 from workers.params import Param
 from workers.registry import Worker
 
-_SEED = Param("int", 0, low=0, high=2**31 - 1, doc="random seed of the estimator")
+_SEED = Param("int", None, low=0, high=2**31 - 1, nullable=True,
+               doc="random seed of the estimator; none (default): derived per fold (workers.job.derived_seed)")
 
 
 def _preprocessed(estimator: Any, data: Any, *, scale: bool) -> Any:

@@ -3,6 +3,14 @@
 ``run_job`` is the only function executors call. It never raises for a
 failing fit: the failure, with its traceback, is part of the result record,
 so that one bad configuration does not stop a sweep.
+
+Seeds: a worker that declares a ``random_state`` parameter gets, when the
+configuration leaves it at ``None`` (the default), the fold job's derived
+seed :func:`derived_seed` of the fold scheme's seed, the repeat and the
+fold: the same for every configuration on that fold (common random numbers,
+so comparisons stay paired) and different across folds and repeats, so that
+repeated cross-validation samples the variance of a model's own randomness.
+An explicit value in the configuration is used as given.
 """
 
 from __future__ import annotations
@@ -42,6 +50,8 @@ class Job:
     #: row indices of the training part when it is not every row outside the test part (an inner job of
     #: nested selection trains on part of its outer training part; the outer test rows are in neither)
     train_index: np.ndarray | None = None
+    #: the fold scheme's seed: a declared ``random_state`` left at None gets ``derived_seed(folds_seed, repeat, fold)``
+    folds_seed: int = 0
 
 
 @dataclass(frozen=True)
@@ -96,6 +106,32 @@ def resolve_data(data: Any) -> Any:
     return _cache[data.fingerprint]
 
 
+def derived_seed(folds_seed: int, repeat: int, fold: int, *, inner: bool = False) -> int:
+    """The seed of fold ``fold`` of repeat ``repeat`` under a fold scheme seeded ``folds_seed``.
+
+    numpy's ``SeedSequence`` with the scheme's seed as entropy and ``(repeat,
+    fold)`` as spawn key (its documented way to derive independent streams;
+    ``(repeat, fold, 1)`` for an inner job of nested selection, whose packed
+    fold number could otherwise repeat an outer fold's seed),
+    cut to ``[0, 2**31 - 1]``, the range every declared ``random_state`` accepts.
+    Part of what a job key stands for (it covers the scheme's seed, the repeat
+    and the fold): never change it without changing the workers' versions.
+    """
+    key = (repeat, fold, 1) if inner else (repeat, fold)
+    state = np.random.SeedSequence(folds_seed, spawn_key=key).generate_state(1, np.uint32)
+    return int(state[0] >> 1)
+
+
+def job_params(worker: Any, job: Job) -> dict[str, Any]:
+    """The job's parameters as the worker's ``build`` gets them: a declared ``random_state`` left at
+    None filled with the fold's :func:`derived_seed`."""
+    params = dict(job.params)
+    if "random_state" in worker.params and params.get("random_state") is None:
+        params["random_state"] = derived_seed(job.folds_seed, job.repeat, job.fold,
+                                              inner=job.train_index is not None)
+    return params
+
+
 class JobTimeout(BaseException):
     """Raised inside a job that exceeded its time limit (a BaseException, so that no `except Exception` in a
     worker swallows it)."""
@@ -116,7 +152,7 @@ def run_job(job: Job, data: Any) -> JobResult:
                              f"the job expects {job.fingerprint}")
         # built (and its libraries imported) before the clock starts: an import cut short by the
         # limit is rolled back, so every later job in that process would import, and time out, again
-        estimator = worker.build(dict(job.params), data)
+        estimator = worker.build(job_params(worker, job), data)
         with _time_limit(job.time_limit):
             scores = _fit_and_score(worker, estimator, job, data)
         return JobResult(ok=True, finished_at=time.time(), **base, **scores)

@@ -32,7 +32,8 @@ _PARAMS: dict[str, Param] = {
     "rule_weight": Param("str", "certainty", choices=("certainty", "penalized_certainty"),
                          doc="rule weight: certainty factor or penalized certainty factor"),
     "tuning": Param("bool", True, doc="lateral tuning of the labels"),
-    "random_state": Param("int", 0, low=0, high=2**31 - 1, doc="seed of the genetic stage"),
+    "random_state": Param("int", None, low=0, high=2**31 - 1, nullable=True,
+                          doc="seed of the genetic stage; none (default): derived per fold (workers.job.derived_seed)"),
 }
 
 
