@@ -18,7 +18,7 @@ from sklearn.datasets import load_digits, make_classification
 from workers.fuzzy.mining import mine_rules
 from workers.fuzzy.partitions import build_partition, memberships
 from workers.fuzzy.prescreen import prescreen, weighted_relative_accuracy
-from workers.fuzzy.reasoning import matching_degrees
+from workers.fuzzy.reasoning import cube_slots, integrate, matching_degrees
 
 TOL = 1e-9
 
@@ -114,3 +114,156 @@ def test_fast_prescreening_equals_straightforward(case, cover_limit):
     # with the miner's out-of-class sums, and with those formed by prescreen itself
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit, rules.outside)) == expected
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit)) == expected
+
+
+# ------------------------------------------------------------------ genetic stage
+# The genetic stage computes, per chromosome, only the membership rows its selected rules use
+# (MembershipCache.rows). The references below are the straightforward computation it replaced:
+# the whole membership matrix for the chromosome's displacement, then the rule base's scores
+# (FARC-HD fitness, Alcala-Fdez, Alcala, Herrera, IEEE TFS 19(5) 2011, section III-C).
+
+
+@pytest.mark.parametrize("case", range(2))
+def test_membership_rows_equal_full_matrix_bit_for_bit(case):
+    from workers.fuzzy.partitions import MembershipCache
+
+    X, y, nominal, labels = list(_problems())[case]
+    p = build_partition(X, nominal, labels)
+    rng = np.random.default_rng(case)
+    items = np.sort(rng.choice(p.n_items, size=p.n_items // 2, replace=False))
+    cache = MembershipCache(p, X, items=items)
+    for _ in range(5):
+        disp = rng.uniform(-0.5, 0.5, p.n_numeric_items)
+        full = cache(disp)
+        rows = rng.integers(0, len(items) + 1, size=(7, 3))  # len(items): the padding row
+        compact, renumbered = cache.rows(disp, rows)
+        assert len(compact) <= len(np.unique(rows)) + 1
+        assert np.array_equal(compact[renumbered], full[rows])
+        # and the full matrix is that of the straightforward function, restricted to the items
+        assert np.array_equal(full[:-1], memberships(p, X, disp)[items])
+
+
+class _ReferenceFitness:
+    """The genetic stage's fitness before it was made fast: the whole membership matrix per
+    chromosome, and every contested example's vectors integrated, firing or not."""
+
+    def __init__(self, fitness):
+        self.f = fitness
+
+    def __call__(self, reals, bits):
+        from workers.fuzzy.classifier import exponent_from_gene
+        from workers.fuzzy.genetic import penalized_fitness
+        from workers.fuzzy.reasoning import contested_part, rule_scores, shortcut_applies
+
+        f, est = self.f, self.f.est
+        shortcut = shortcut_applies(est.reasoning, est.tnorm)
+        accuracy = np.zeros(len(bits))
+        n_sel = bits.sum(axis=1)
+        pending = []
+        for k in np.flatnonzero(n_sel):
+            sel = np.flatnonzero(bits[k])
+            M = f.cache(reals[k, : f.n_disp] if f.n_disp else f.zero)
+            q = exponent_from_gene(reals[k, f.n_disp:]) if f.learn_q else f.fixed_q
+            args = (M, f.items[sel], f.classes[sel], f.weight[sel], f.n_classes)
+            if shortcut:
+                pending.append((k, q, sel, *contested_part(*args[:-1], f.onehot[sel])))
+            else:
+                accuracy[k] = f._accuracy(rule_scores(*args, est.reasoning, est.measure, q, est.tnorm))
+        if pending:
+            self._integrate(pending, accuracy)
+        return penalized_fitness(accuracy, bits.shape[1], n_sel, est.penalty)
+
+    def _integrate(self, pending, accuracy):
+        """The batch integration before only firing vectors were integrated (a copy of the old code)."""
+        C = self.f.n_classes
+        est = self.f.est
+        width = max(1, max(int(p[6].max()) for p in pending))
+        sizes = [len(p[4]) for p in pending]
+        flat = est.measure == "sugeno_lambda"
+        rows = max(sizes)
+        if flat:
+            at = np.cumsum([0] + sizes)
+            stacked = np.zeros((at[-1], C * width))
+        else:
+            stacked = np.zeros((len(pending), rows, C * width))
+        n = np.empty((len(pending), 1, C))
+        q = np.ones((len(pending), 1, C))
+        for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
+            block = stacked[at[j]: at[j + 1]] if flat else stacked[j, : len(idx)]
+            block[:, cube_slots(self.f.classes[sel], counts, width)] = degrees.T
+            n[j, 0] = counts
+            if q_k is not None:
+                q[j, 0] = q_k
+        if rows == 0:
+            values = None
+        elif flat:
+            values = integrate(stacked.reshape(-1, C, width), np.ones(C), est.reasoning, est.measure,
+                               1.0, est.tnorm)
+        else:
+            values = integrate(stacked.reshape(len(pending), rows, C, width), n, est.reasoning,
+                               est.measure, q, est.tnorm)
+        for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
+            if len(idx):
+                scores[idx] = values[at[j]: at[j + 1]] if flat else values[j, : len(idx)]
+            accuracy[k] = self.f._accuracy(scores)
+
+
+@pytest.mark.parametrize("reasoning,measure", [("additive", "power"), ("winning_rule", "power"),
+                                               ("choquet", "cardinality"), ("choquet", "power"),
+                                               ("choquet", "sugeno_lambda")])
+def test_genetic_stage_equals_straightforward_fitness(monkeypatch, reasoning, measure):
+    from workers.fuzzy import classifier
+    from workers.fuzzy.classifier import FuzzyRuleClassifier
+
+    X, y, nominal, labels = list(_problems())[1]
+    params = dict(labels=labels, reasoning=reasoning, measure=measure, evaluations=300, population=20,
+                  random_state=3)
+    fast = FuzzyRuleClassifier(**params).fit(X, y)
+    fast_fitness = classifier._Fitness
+
+    class Straightforward(fast_fitness):
+        def __call__(self, reals, bits):
+            return _ReferenceFitness(self)(reals, bits)
+
+    monkeypatch.setattr(classifier, "_Fitness", Straightforward)
+    ref = FuzzyRuleClassifier(**params).fit(X, y)
+    assert ref.n_rules_screened_ > 10 and ref.n_evaluations_ == 300
+    assert fast.fitness_ == ref.fitness_
+    assert np.array_equal(fast.rules_.items, ref.rules_.items)
+    assert np.array_equal(fast.displacement_, ref.displacement_)
+    if measure == "power" and reasoning == "choquet":
+        assert np.array_equal(fast.power_exponents_, ref.power_exponents_)
+    assert np.array_equal(fast.predict(X), ref.predict(X))
+    # and chromosome by chromosome, on random ones (the run above visits only some)
+    rng = np.random.default_rng(0)
+    f = fast_fitness(fast.partition_, X, fast.rules_, y, 3, fast,
+                     fast.partition_.n_numeric_items, reasoning == "choquet" and measure == "power")
+    reals = rng.uniform(-0.5, 0.5, (10, f.n_disp + (3 if f.learn_q else 0)))
+    bits = rng.random((10, len(fast.rules_))) < 0.5
+    assert np.array_equal(f(reals, bits), _ReferenceFitness(f)(reals, bits))
+
+
+@pytest.mark.parametrize("measure", ["cardinality", "power", "sugeno_lambda"])
+def test_firing_vectors_integrate_to_the_same_scores_bit_for_bit(measure):
+    from workers.fuzzy.classifier import FuzzyRuleClassifier, _Fitness, exponent_from_gene
+    from workers.fuzzy.reasoning import contested_part
+
+    X, y, nominal, labels = list(_problems())[1]
+    est = FuzzyRuleClassifier(labels=labels, reasoning="choquet", measure=measure, evaluations=0).fit(X, y)
+    p = est.partition_
+    f = _Fitness(p, X, est.rules_, y, 3, est, p.n_numeric_items, measure == "power")
+    rng = np.random.default_rng(1)
+    pending = []
+    for k in range(8):
+        sel = np.flatnonzero(rng.random(len(est.rules_)) < 0.6)
+        q = exponent_from_gene(rng.uniform(-0.5, 0.5, 3)) if measure == "power" else None
+        M = f.cache(rng.uniform(-0.5, 0.5, p.n_numeric_items))
+        pending.append((k, q, sel, *contested_part(M, f.items[sel], f.classes[sel], f.weight[sel], f.onehot[sel])))
+    copies = [(k, q, sel, scores.copy(), *rest) for k, q, sel, scores, *rest in pending]
+    assert sum(len(c[4]) for c in pending) > 20  # contested examples to integrate
+    got, expected = np.zeros(8), np.zeros(8)
+    f._integrate(pending, got)
+    _ReferenceFitness(f)._integrate(copies, expected)
+    for new, old in zip(pending, copies):
+        assert np.array_equal(new[3], old[3])
+    assert np.array_equal(got, expected)

@@ -218,6 +218,26 @@ def sugeno_lambda(g: Any) -> np.ndarray | float:
     return _finish(out.reshape(lead))
 
 
+def choquet_weights(measure: str, width: int, **params: Any) -> np.ndarray:
+    """Weights ``w`` with ``choquet(x, measure, **params) == choquet_by_weights(x, w)``, shape ``(lead..., width)``.
+
+    For the measures that depend on ``|A|`` only (``"cardinality"``,
+    ``"power"``, ``"maximum"``, ``"minimum"``); ``lead`` is the broadcast
+    shape of ``n`` and ``q``. A caller integrating many vectors that share
+    few ``(n, q)`` computes the weights once per pair and gathers them, the
+    values bit-for-bit those :func:`choquet` computes.
+    """
+    if measure not in ("cardinality", "power", "maximum", "minimum"):
+        raise MeasureError(f"choquet_weights: measure {measure!r} is not one of |A| only")
+    lead = np.broadcast_shapes(*(np.shape(v) for v in params.values() if v is not None))
+    return _increments_to_weights(cardinality_chain(measure, width, check_params(measure, params, lead, width)))
+
+
+def choquet_by_weights(x: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """The Choquet integral of each ``x[..., :]`` from :func:`choquet_weights` (same shape as ``x``)."""
+    return np.einsum("...n,...n->...", _sorted(x), weights)
+
+
 # --- the machinery -------------------------------------------------------------------
 
 
@@ -263,7 +283,7 @@ class _Plan:
         if self.chain is not None:
             xs = _sorted(xb)
             if kind == "choquet":
-                return np.einsum("...n,...n->...", xs, self.coef[sl])
+                return np.einsum("...n,...n->...", xs, self.coef[sl])  # as choquet_by_weights
             return _from_chain(xs, self.chain[sl], kind, tnorm)
         if self.measure == "additive":
             order = np.argsort(xb, axis=-1)

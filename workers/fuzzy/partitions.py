@@ -188,6 +188,35 @@ class MembershipCache:
         self._recent[key] = out
         return out
 
+    def rows(self, displacement: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Only the membership rows that ``rows`` use, for one displacement (no caching).
+
+        ``rows`` holds row numbers of the full matrix (``len(items)`` is the
+        padding row), in any shape, e.g. a rule base's antecedents. Returns
+        the compact matrix of the distinct rows used (increasing, the padding
+        row last) and ``rows`` renumbered into it. Each entry is computed by
+        the same operations as in :meth:`__call__`, so the values are
+        bit-for-bit those of the full matrix; but a rule base that uses few
+        items costs only their rows.
+        """
+        pad = len(self.items)
+        mark = np.zeros(pad + 1, dtype=bool)
+        mark[rows] = True
+        mark[pad] = True
+        need = np.flatnonzero(mark)
+        where = np.empty(pad + 1, dtype=np.intp)
+        where[need] = np.arange(len(need))
+        num = need[need < self._n_num]
+        out = np.empty((len(need), self._matrix.shape[1]))
+        head = out[: len(num)]
+        np.take(self._z, num, axis=0, out=head)
+        np.subtract(head, displacement[self._num_items[num]][:, None], out=head)
+        np.abs(head, out=head)
+        np.subtract(1.0, head, out=head)
+        np.maximum(head, 0.0, out=head)
+        out[len(num):] = self._matrix[need[len(num):]]  # crisp rows and padding never change
+        return out, where[rows]
+
 
 def memberships(partition: FuzzyPartition, X: np.ndarray,
                 displacement: np.ndarray | None = None) -> np.ndarray:
