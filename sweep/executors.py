@@ -11,7 +11,7 @@ Adding an executor: subclass :class:`Executor`, then add one line to
 from __future__ import annotations
 
 import concurrent.futures as cf
-from typing import Any, Callable
+from typing import Any, Callable, Iterable
 
 from sweep.executor_base import Executor, FileShare
 from sweep.lifeline import watch_parent
@@ -22,12 +22,32 @@ __all__ = ["EXECUTORS", "Executor", "FileShare", "InProcessExecutor", "JoblibExe
 
 
 class InProcessExecutor(Executor):
-    """One job at a time in this process: the same code path, debuggable with pdb."""
+    """One job at a time in this process: the same code path, debuggable with pdb.
+
+    A task runs when the loop waits, one task per wait, so that the loop commits, renews its
+    lease and sees a signal between tasks (run at submit, a window of tasks would run before
+    the loop could commit the first one's results)."""
+
+    def __init__(self) -> None:
+        self._queued: list[tuple[cf.Future[Any], list[Job], Any]] = []
 
     def submit(self, jobs: list[Job], handle: Any) -> cf.Future[Any]:
         future: cf.Future[Any] = cf.Future()
-        future.set_result(run_jobs(jobs, handle))
+        self._queued.append((future, jobs, handle))
         return future
+
+    def wait(self, futures: Iterable[Any], timeout: float) -> set[Any]:
+        wanted = set(futures)
+        done = {f for f in wanted if f.done()}
+        if done:
+            return done
+        self._queued = [entry for entry in self._queued if not entry[0].cancelled()]
+        for index, (future, jobs, handle) in enumerate(self._queued):
+            if future in wanted:
+                del self._queued[index]
+                future.set_result(run_jobs(jobs, handle))
+                return {future}
+        return set()
 
 
 class JoblibExecutor(Executor):
