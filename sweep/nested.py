@@ -291,7 +291,7 @@ def load_selection(inputs: Any, store: Any, metric: str) -> Any:
     version = {c.config_id: c.worker_version for c in plan.configurations}
     rows, columns = store.done_results(scheme=inner_scheme(plan.scheme, plan.inner_k),
                                        fingerprints=[fp for _, fp in plan.datasets], repeats=plan.repeats,
-                                       k=plan.k * plan.inner_k, figures=False, keys=False, hosts=True,
+                                       k=plan.k * plan.inner_k, figures=False, keys=False, hosts=False,
                                        metrics=[metric])
     frame = pd.DataFrame.from_records(rows, columns=columns)
     frame = frame[frame["config_id"].map(version) == frame["worker_version"]]

@@ -87,15 +87,13 @@ def results_frame(inputs: Any, store: Any, *, figures: bool = True, keys: bool =
     configs = plan.configurations
     version = {c.config_id: c.worker_version for c in configs}
     where = dict(scheme=plan.scheme, fingerprints=[fp for _, fp in plan.datasets], repeats=plan.repeats, k=plan.k)
-    # results of a configuration under another worker version need the per-row version to be told apart
-    mixed = any(c in version and v != version[c] for c, v in store.versions(**where))
-    rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts or mixed,
+    rows, columns = store.done_results(**where, figures=figures, keys=keys, hosts=hosts,
                                        metrics=list(metrics), names={fp: name for name, fp in plan.datasets})
     frame = pd.DataFrame.from_records(rows, columns=columns)
-    in_plan = frame["config_id"].map(version)
-    frame = frame[(in_plan == frame["worker_version"]) if mixed else in_plan.notna()]
-    if mixed and not hosts:
-        frame = frame.drop(columns=["worker_version", "host"])
+    # a configuration's results under another worker version are not the plan's (one scan tells them apart)
+    frame = frame[frame["config_id"].map(version) == frame["worker_version"]]
+    if not hosts:
+        frame = frame.drop(columns=["worker_version"])
     params = sorted({name for c in configs for name in c.params})
     shown = {c.config_id: (names[c.config_id].params if names else c.params) for c in configs}
     table = pd.DataFrame({"config_id": [c.config_id for c in configs], "worker": [c.worker for c in configs],

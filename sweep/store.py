@@ -529,19 +529,19 @@ class Store:
                      metrics: Sequence[str], names: Mapping[str, str] | None = None,
                      ) -> tuple[list[tuple[Any, ...]], list[str]]:
         """(rows, column names) of the results on these datasets (fingerprints) and folds, with the
-        ``metrics`` columns.
+        ``metrics`` columns and each row's ``worker_version`` (with ``hosts``, its ``host`` too).
 
         ``names`` (fingerprint -> dataset name) names each row's dataset as the caller's spec does; else it
         is the name under which the job was first planned (a result is shared by every sweep that plans
         its job, whatever each calls the data).
 
         One scan of the results table, no join. The caller keeps the rows of
-        its plan's configurations (see ``versions``).
+        its plan's configurations and worker versions.
         """
         r = results_table.c
         dataset = sa.case(dict(names), value=r.fingerprint, else_=r.dataset).label("dataset") if names else r.dataset
         columns = [dataset, r.config_id, r.repeat, r.fold, *(r[name] for name in metrics)]
-        columns = ([r.key] if keys else []) + columns + ([r.worker_version, r.host] if hosts else [])
+        columns = ([r.key] if keys else []) + columns + [r.worker_version] + ([r.host] if hosts else [])
         if figures:
             columns.append(r.figures)
         query = sa.select(*columns).where(*self._on(scheme, fingerprints, repeats, k))
@@ -549,15 +549,6 @@ class Store:
             result = conn.execute(query)
             # plain DBAPI tuples: a million SQLAlchemy Row objects cost more than the query itself
             return list(result.cursor.fetchall()), list(result.keys())
-
-    def versions(self, *, scheme: str, fingerprints: Sequence[str], repeats: int,
-                 k: int) -> dict[tuple[str, str], int]:
-        """(config_id, worker_version) -> result rows, over the same selection as :meth:`done_results`."""
-        r = results_table.c
-        query = (sa.select(r.config_id, r.worker_version, sa.func.count())
-                 .where(*self._on(scheme, fingerprints, repeats, k)).group_by(r.config_id, r.worker_version))
-        with self.reader.connect() as conn:
-            return {(c, v): int(n) for c, v, n in conn.execute(query)}
 
     @staticmethod
     def _on(scheme: str, fingerprints: Sequence[str], repeats: int, k: int) -> list[Any]:
