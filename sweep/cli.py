@@ -29,7 +29,7 @@ from pathlib import Path
 from typing import Any, NoReturn, Sequence
 
 from sweep.errors import FoldsweepError, NoStoreYet, SelectionError, UsageError
-from sweep.text import mask_passwords, printable
+from sweep.text import last_line, mask_passwords, printable
 
 EXIT_JOBS_FAILED = 1
 EXIT_BAD_INPUT = 2
@@ -229,7 +229,7 @@ def cmd_status(args: argparse.Namespace) -> int:
             if not job.scheme:  # an inner job (nested selection) is counted apart, below
                 counts["gone" if job.key in gone else state] += 1
             if state == "failed":
-                message = "timed out" if timed_out else _last_line(error)
+                message = "timed out" if timed_out else last_line(error)
                 failures[message] = failures.get(message, 0) + 1
     else:
         counts["pending"] = counts["total"]
@@ -261,12 +261,6 @@ def _nested_status(plan: Any, states: dict[str, Any]) -> dict[str, Any]:
     state = {key: rest[0] for key, rest in states.items()}
     selected, total = selection_progress(plan, {key for key, s in state.items() if s == "done"})
     return {"inner": inner_counts(plan, state), "selections": {"done": selected, "total": total}}
-
-
-def _last_line(error: str | None) -> str:
-    """The last line of a stored traceback, without terminal control sequences."""
-    lines = [line.strip() for line in printable(error or "").strip().splitlines() if line.strip()]
-    return lines[-1] if lines else "unknown error"
 
 
 def cmd_configs(args: argparse.Namespace) -> int:
@@ -317,12 +311,12 @@ def cmd_failures(args: argparse.Namespace) -> int:
             raise SelectionError(f"{args.spec}: {what} a key starting with {args.traceback!r} "
                                  "(keys: foldsweep failures SPEC --json)")
         job = found[0]
-        print(clean_text(job["error"] or ("timed out" if job["timed_out"] else "no traceback stored")).rstrip())
+        print(printable(job["error"] or ("timed out" if job["timed_out"] else "no traceback stored")).rstrip())
         return 0
     rows = [{"key": f["key"], "dataset": f["dataset"], "config": view.names[f["config_id"]].name
              if f["config_id"] in view.names else f["config_id"], "config_id": f["config_id"],
              "repeat": f["repeat"], "fold": f["fold"], "attempts": f["attempts"],
-             "error": "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))} for f in failed]
+             "error": "timed out" if f["timed_out"] else last_line(f["error"])} for f in failed]
     if view.plan.inner_k:  # an inner job of nested selection: its outer fold, and which inner fold
         from sweep.nested import split_number
 
@@ -351,7 +345,6 @@ def cmd_failures(args: argparse.Namespace) -> int:
 
 #: the project's one stripping of terminal control from stored text (a library's colour codes, or anything a
 #: worker printed), under the name the report modules use
-clean_text = printable
 
 
 def cmd_results(args: argparse.Namespace) -> int:

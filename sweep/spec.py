@@ -145,13 +145,6 @@ def load_spec(path: str | Path) -> Spec:
     return parse_spec(doc, path, digest)
 
 
-def read_memory_limit(path: str | Path) -> str | None:
-    """Only the spec's ``memory_limit``, checked (what an embedded dask cluster needs before the rest
-    of the spec is validated, which imports the workers' modules)."""
-    doc, _ = _read(Path(path))
-    return _memory_limit(doc.get("memory_limit"), str(path))
-
-
 def _read(path: Path) -> tuple[dict[str, Any], str]:
     """The TOML document at ``path`` and the sha256 of its bytes."""
     try:

@@ -147,11 +147,11 @@ def _completeness(res: report.SweepResults, metric: str) -> str:
                               for d, r in per_ds.iterrows()]))
     failed = res.info.get("failed", [])
     if failed:
-        from sweep.cli import _last_line, clean_text
+        from sweep.text import last_line
 
         groups: dict[str, list[dict[str, Any]]] = {}
         for f in failed:
-            message = "timed out" if f["timed_out"] else _last_line(clean_text(f["error"] or ""))
+            message = "timed out" if f["timed_out"] else last_line(f["error"])
             groups.setdefault(message, []).append(f)
         parts.append(f"<p>{len(failed)} failed jobs, {len(groups)} distinct errors "
                      "(<code>foldsweep failures SPEC --traceback KEY</code> shows one traceback):</p>")

@@ -33,6 +33,12 @@ def mask_passwords(text: str) -> str:
     return _CREDENTIALS.sub(lambda m: f"{m['head']}:***@", text)
 
 
+def last_line(error: str | None) -> str:
+    """The last line of a stored traceback, without terminal control sequences."""
+    lines = [line.strip() for line in printable(error or "").strip().splitlines() if line.strip()]
+    return lines[-1] if lines else "unknown error"
+
+
 def printable(text: str) -> str:
     """``text`` without terminal escape sequences and control characters (newlines and tabs kept).
 

@@ -444,7 +444,7 @@ def test_written_files_get_the_permissions_of_a_new_file(tmp_path):
 
 def test_clean_text_strips_terminal_control():
     # ECMA-48 (common practice): CSI sequences ESC [ ... final byte, OSC ESC ] ... BEL, C0/C1 controls
-    from sweep.cli import clean_text
+    from sweep.text import printable
 
-    assert clean_text("\x1b[1;31mKeyError\x1b[0m: 'x'\x07") == "KeyError: 'x'"
-    assert clean_text("a\x1b]0;title\x07b\r\nc\td\x9b") == "ab\nc\td"
+    assert printable("\x1b[1;31mKeyError\x1b[0m: 'x'\x07") == "KeyError: 'x'"
+    assert printable("a\x1b]0;title\x07b\r\nc\td\x9b") == "ab\nc\td"
