@@ -171,7 +171,8 @@ class FuzzyRuleClassifier(ClassifierMixin, BaseEstimator):
         mined = mine_rules(M, self.partition_.item_var, y_idx, n_classes, self.min_support,
                            self.max_confidence, self.depth, self.rule_weight, self.min_confidence)
         t_mine = lap()
-        screened = mined.take(prescreen(M, mined.items, mined.classes, y_idx, self.cover_limit, mined.outside))
+        screened = mined.take(prescreen(M, mined.items, mined.classes, y_idx, self.cover_limit, mined.outside,
+                                         mined.inside))
         t_screen = lap()
         self.n_rules_mined_ = len(mined)
         self.n_rules_screened_ = len(screened)

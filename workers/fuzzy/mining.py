@@ -64,9 +64,10 @@ class RuleSet:
         Consequent class index.
     support, confidence, weight : ndarray of shape (n_rules,)
         Fuzzy support, confidence and rule weight on the training part.
-    outside : ndarray of shape (n_rules,) or None
-        Sum of the rule's matching degrees over the training examples of
-        the other classes (prescreening's starting point); None when unknown.
+    outside, inside : ndarray of shape (n_rules,) or None
+        Sums of the rule's matching degrees over the training examples of
+        the other classes and of its own class (prescreening's starting
+        point); None when unknown.
     """
 
     items: np.ndarray
@@ -75,6 +76,7 @@ class RuleSet:
     confidence: np.ndarray
     weight: np.ndarray
     outside: np.ndarray | None = None
+    inside: np.ndarray | None = None
 
     def __len__(self) -> int:
         return len(self.classes)
@@ -83,7 +85,8 @@ class RuleSet:
         """The rules at ``index`` (an index or boolean array), in that order."""
         return RuleSet(self.items[index], self.classes[index], self.support[index],
                        self.confidence[index], self.weight[index],
-                       None if self.outside is None else self.outside[index])
+                       None if self.outside is None else self.outside[index],
+                       None if self.inside is None else self.inside[index])
 
     def lengths(self, pad: int) -> np.ndarray:
         """Number of antecedents per rule."""
@@ -166,7 +169,7 @@ def mine_rules(M: np.ndarray, item_var: np.ndarray, y: np.ndarray, n_classes: in
     out_sum = np.concatenate([p[2] for p in parts])
     sup, conf = _support_confidence(in_sum, out_sum, n)
     weight = conf if rule_weight == "certainty" else 2.0 * conf - 1.0
-    return RuleSet(padded, classes, sup, conf, weight, out_sum)
+    return RuleSet(padded, classes, sup, conf, weight, out_sum, in_sum)
 
 
 def _support_confidence(in_sum: np.ndarray, out_sum: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -178,7 +181,7 @@ def _support_confidence(in_sum: np.ndarray, out_sum: np.ndarray, n: int) -> tupl
 
 def _empty(depth: int) -> RuleSet:
     z = np.zeros(0)
-    return RuleSet(np.zeros((0, depth), dtype=np.intp), np.zeros(0, dtype=np.intp), z, z, z, z)
+    return RuleSet(np.zeros((0, depth), dtype=np.intp), np.zeros(0, dtype=np.intp), z, z, z, z, z)
 
 
 def _mine_class(M, item_var, in_class, minsup, max_conf, min_conf, depth, c):
