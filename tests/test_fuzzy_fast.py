@@ -111,7 +111,8 @@ def test_fast_prescreening_equals_straightforward(case, cover_limit):
         idx = np.flatnonzero(rules.classes == c)
         expected.extend(idx[reference_prescreening(matching_degrees(M, rules.items[idx]), y == c, cover_limit)])
     assert len(expected) > 5
-    # with the miner's out-of-class sums, and with those formed by prescreen itself
+    # with the miner's sums (as the classifier calls it), and with those formed by prescreen itself
+    assert list(prescreen(M, rules.items, rules.classes, y, cover_limit, rules.outside, rules.inside)) == expected
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit, rules.outside)) == expected
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit)) == expected
 
