@@ -29,9 +29,16 @@ the same variable, the in-class sums of all their one-item extensions at
 once as one matrix product (BLAS) of the parents' matching vectors on the
 class's examples with the item memberships on those examples; the sums on
 the other examples (for the confidence) likewise, then kept only for the
-frequent children. A node's matching vector is formed again from its items
-when it is expanded, so that memory holds one block at a time, never a
-level's vectors.
+frequent children. The sums over every example are formed the same way
+once per distinct parent for all classes together (an item set is a
+parent in several classes' trees: on digits 22,000 distinct parents stand
+for 91,000), and the out-of-class sum is the total less the in-class sum
+(a difference below ``RTOL`` of the total is rounding and counts as 0, so
+that a pure rule keeps confidence 1). A node's matching vector is formed
+again from its items when it is expanded, so that memory holds one block
+at a time, never a level's vectors. On digits (first fold, 2.1 million
+frequent item sets) mining took 1.7 CPU seconds with each class's sums
+over the other examples formed on their own, 0.9 s this way.
 
 Thresholds are compared with a relative tolerance of 1e-9 (``RTOL``): a
 support or confidence equal to its threshold in exact arithmetic (common
@@ -149,25 +156,51 @@ def mine_rules(M: np.ndarray, item_var: np.ndarray, y: np.ndarray, n_classes: in
     n = len(y)
     pad = M.shape[0] - 1
     item_var = np.asarray(item_var, dtype=np.intp)
-    parts = []
-    for c in range(n_classes):
-        in_class = y == c
-        if not in_class.any():
-            continue
-        minsup = min_support * in_class.sum() / n
-        parts.append(_mine_class(M, item_var, in_class, minsup, max_confidence, min_confidence, depth, c))
-    if not parts:
+    present = [c for c in range(n_classes) if np.any(y == c)]
+    if not present:
         return _empty(depth)
-    padded = np.full((sum(len(level) for p in parts for level in p[0]), depth), pad, dtype=np.intp)
+    # the right-hand sides of the blocks' products: (examples, items), items sorted by variable, so
+    # that the items of the variables after v are one slice
+    by_var = np.argsort(item_var, kind="stable")
+    layout = (by_var, item_var[by_var])
+    monotone = bool(np.all(np.diff(by_var) > 0))
+    whole = np.ascontiguousarray(M[:-1][by_var].T)
+    members = {c: M[:-1, y == c] for c in present}
+    sides = {c: np.ascontiguousarray(members[c][by_var].T) for c in present}
+    minsup = {c: min_support * np.count_nonzero(y == c) / n for c in present}
+    nodes = {c: np.zeros((1, 0), dtype=np.intp) for c in present}  # the root: the empty item set
+    found: dict[int, list] = {c: [] for c in present}
+    for level in range(1, depth + 1):
+        kids = {c: _frequent_children(nodes[c], item_var, layout, members[c], sides[c], minsup[c], n)
+                for c in present}
+        totals = _totals([(nodes[c], kids[c][0], kids[c][1]) for c in present], item_var, layout, M[:-1],
+                         whole)
+        for c, total in zip(present, totals):
+            parent, column, in_sum = kids[c]
+            # the other classes' examples; below the tolerance of the total, the difference is rounding
+            out_sum = total - in_sum
+            out_sum[out_sum <= RTOL * total] = 0.0
+            # tree order: by parent, then by item (a parent's children come in column order, which is
+            # the items' order when no item of a later variable has a smaller index)
+            order = (np.argsort(parent, kind="stable") if monotone
+                     else np.lexsort((by_var[column], parent)))
+            parent, item = parent[order], by_var[column[order]]
+            children = np.concatenate([nodes[c][parent], item[:, None]], axis=1)
+            in_sum, out_sum = in_sum[order], out_sum[order]
+            _, conf = _support_confidence(in_sum, out_sum, n)
+            cand = reaches(conf, min_confidence) if min_confidence > 0 else slice(None)
+            found[c].append((children[cand], in_sum[cand], out_sum[cand], conf[cand]))
+            nodes[c] = children[~exceeds(conf, max_confidence)]
+    levels = [level for c in present for level in found[c]]
+    padded = np.full((sum(len(lv[0]) for lv in levels), depth), pad, dtype=np.intp)
     at = 0
-    for part in parts:
-        for level in part[0]:
-            padded[at: at + len(level), : level.shape[1]] = level
-            at += len(level)
-    classes = np.concatenate([np.full(sum(len(level) for level in p[0]), p[3], dtype=np.intp) for p in parts])
-    in_sum = np.concatenate([p[1] for p in parts])
-    out_sum = np.concatenate([p[2] for p in parts])
-    sup, conf = _support_confidence(in_sum, out_sum, n)
+    for items, *_ in levels:
+        padded[at: at + len(items), : items.shape[1]] = items
+        at += len(items)
+    classes = np.concatenate([np.full(sum(len(lv[0]) for lv in found[c]), c, dtype=np.intp) for c in present])
+    in_sum = np.concatenate([lv[1] for lv in levels])
+    out_sum = np.concatenate([lv[2] for lv in levels])
+    sup, conf = in_sum / n, np.concatenate([lv[3] for lv in levels])
     weight = conf if rule_weight == "certainty" else 2.0 * conf - 1.0
     return RuleSet(padded, classes, sup, conf, weight, out_sum, in_sum)
 
@@ -184,67 +217,82 @@ def _empty(depth: int) -> RuleSet:
     return RuleSet(np.zeros((0, depth), dtype=np.intp), np.zeros(0, dtype=np.intp), z, z, z, z, z)
 
 
-def _mine_class(M, item_var, in_class, minsup, max_conf, min_conf, depth, c):
-    """Per level, the candidates' items, in-class and out-of-class sums; the tree order."""
-    n = len(in_class)
-    inside, outside = M[:-1, in_class], M[:-1, ~in_class]
-    # the right-hand sides of the blocks' products: (examples, items), items sorted by variable, so
-    # that the items of the variables after v are one slice
-    by_var = np.argsort(item_var, kind="stable")
-    sides = (np.ascontiguousarray(inside[by_var].T), np.ascontiguousarray(outside[by_var].T))
-    layout = (by_var, item_var[by_var])
-    nodes = np.zeros((1, 0), dtype=np.intp)  # the root: the empty item set, matching degree 1
-    found_items, found_in, found_out = [], [], []
-    for level in range(1, depth + 1):
-        nodes, in_sum, out_sum = _frequent_children(nodes, item_var, layout, inside, outside, sides, minsup, n)
-        _, conf = _support_confidence(in_sum, out_sum, n)
-        cand = reaches(conf, min_conf) if min_conf > 0 else np.ones(len(nodes), dtype=bool)
-        found_items.append(nodes[cand])
-        found_in.append(in_sum[cand])
-        found_out.append(out_sum[cand])
-        if level == depth:
-            break
-        nodes = nodes[~exceeds(conf, max_conf)]
-        if len(nodes) == 0:
-            break
-    return found_items, np.concatenate(found_in), np.concatenate(found_out), c
+def _frequent_children(nodes, item_var, layout, inside, side, minsup, n):
+    """The frequent one-item extensions (by a variable after the last item's) of ``nodes``.
 
-
-def _frequent_children(nodes, item_var, layout, inside, outside, sides, minsup, n):
-    """The frequent one-item extensions (by a variable after the last item's) of ``nodes``, in tree order.
-
-    Returns the children's items ``(k, level)`` sorted by (parent, item), and
-    their sums of matching degrees over the class's examples and the others.
+    Returns, per child, its parent (row of ``nodes``), its item's column in
+    the variable-sorted layout, and its sum of matching degrees over the
+    class's examples (``inside``: their memberships; ``side``: the same,
+    ``(examples, items)`` in the layout's order). Children of one parent
+    come in increasing column order.
     """
-    by_var, sorted_var = layout
+    sorted_var = layout[1]
     last = item_var[nodes[:, -1]] if nodes.shape[1] else np.full(len(nodes), -1)
-    rows_per_block = max(1, _BLOCK_FLOATS // max(inside.shape[1], outside.shape[1], len(item_var), 1))
-    parents, items, ins, outs = [], [], [], []
+    rows_per_block = max(1, _BLOCK_FLOATS // max(inside.shape[1], len(item_var), 1))
+    parents, columns, sums = [], [], []
     for var in np.unique(last):
         start = np.searchsorted(sorted_var, var, side="right")
         if start == len(sorted_var):
             continue
-        in_cols, out_cols = sides[0][:, start:], sides[1][:, start:]
         group = np.flatnonzero(last == var)
         for s in range(0, len(group), rows_per_block):
             block = group[s: s + rows_per_block]
-            in_sum = _vectors(nodes[block], inside) @ in_cols  # (block, items): all children at once
+            in_sum = _vectors(nodes[block], inside) @ side[:, start:]  # (block, items): all children at once
             p, i = np.nonzero(reaches(in_sum / n, minsup))
-            if len(p) == 0:
-                continue
-            out_sum = _vectors(nodes[block], outside) @ out_cols
             parents.append(block[p])
-            items.append(by_var[start + i])
-            ins.append(in_sum[p, i])
-            outs.append(out_sum[p, i])
-    width = nodes.shape[1] + 1
+            columns.append(start + i)
+            sums.append(in_sum[p, i])
     if not parents:
-        return np.zeros((0, width), dtype=np.intp), np.zeros(0), np.zeros(0)
-    parent, item = np.concatenate(parents), np.concatenate(items)
-    order = np.lexsort((item, parent))
-    parent, item = parent[order], item[order]
-    children = np.concatenate([nodes[parent], item[:, None]], axis=1)
-    return children, np.concatenate(ins)[order], np.concatenate(outs)[order]
+        return np.zeros(0, dtype=np.intp), np.zeros(0, dtype=np.intp), np.zeros(0)
+    return np.concatenate(parents), np.concatenate(columns), np.concatenate(sums)
+
+
+def _totals(classes, item_var, layout, members, whole):
+    """Per class, the sums of its children's matching degrees over every example.
+
+    ``classes`` holds per class ``(nodes, parent, column)`` as
+    :func:`_frequent_children` gives them. An item set is often a parent in
+    several classes' trees: the sums are formed once per distinct parent,
+    ``(parents' vectors on every example) @ whole[:, columns after the
+    parent's last variable]``, in blocks, and read for every class's children.
+    """
+    sorted_var = layout[1]
+    width = classes[0][0].shape[1]
+    n_children = sum(len(parent) for _, parent, _ in classes)
+    if n_children == 0:
+        return [np.zeros(0) for _ in classes]
+    if width:
+        # each class's parents once, then the distinct item sets among them
+        per_class = [np.unique(parent, return_inverse=True) for _, parent, _ in classes]
+        distinct, where = np.unique(np.concatenate([nodes[up] for (nodes, _, _), (up, _) in zip(classes, per_class)]),
+                                    axis=0, return_inverse=True)
+        offsets = np.cumsum([0] + [len(up) for up, _ in per_class])
+        which = np.concatenate([where.ravel()[offsets[k] + inv.ravel()] for k, (_, inv) in enumerate(per_class)])
+    else:
+        distinct, which = np.zeros((1, 0), dtype=np.intp), np.zeros(n_children, dtype=np.intp)
+    columns = np.concatenate([column for _, _, column in classes])
+    last = item_var[distinct[:, -1]] if width else np.full(len(distinct), -1)
+    by_last = np.argsort(last, kind="stable")  # a block's parents then share most of their columns
+    rank = np.empty(len(distinct), dtype=np.intp)
+    rank[by_last] = np.arange(len(distinct))
+    which = rank[which]
+    distinct, last = distinct[by_last], last[by_last]
+    total = np.empty(n_children)
+    rows_per_block = max(1, _BLOCK_FLOATS // max(members.shape[1], len(item_var), 1))
+    # entries grouped by block of parents (a counting sort: blocks are few)
+    block_of = which // rows_per_block
+    if len(distinct) // rows_per_block < 1 << 16:
+        block_of = block_of.astype(np.uint16)  # sorted by radix
+    order = np.argsort(block_of, kind="stable")
+    bounds = np.searchsorted(block_of[order], np.arange(0, len(distinct) // rows_per_block + 2))
+    for b, s in enumerate(range(0, len(distinct), rows_per_block)):
+        here = order[bounds[b]: bounds[b + 1]]
+        if len(here) == 0:
+            continue
+        start = np.searchsorted(sorted_var, last[s], side="right")  # last is sorted: the block's least
+        table = _vectors(distinct[s: s + rows_per_block], members) @ whole[:, start:]
+        total[here] = table[which[here] - s, columns[here] - start]
+    return np.split(total, np.cumsum([len(parent) for _, parent, _ in classes])[:-1])
 
 
 def _vectors(nodes: np.ndarray, memberships: np.ndarray) -> np.ndarray:
