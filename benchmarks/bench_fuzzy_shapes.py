@@ -1,6 +1,6 @@
 """Per-stage times of one default FARC-HD fold job on high-dimensional and large problems, beside a forest.
 
-Run: ``python benchmarks/bench_fuzzy_shapes.py [--quick] [--evaluations N]``
+Run: ``python benchmarks/bench_fuzzy_shapes.py [--quick] [--evaluations N] [--problems digits,5000x40]``
 
 Problems (the first fold of ``StratifiedKFold(5, shuffle=True, random_state=0)``):
 scikit-learn's digits (1,797 x 64, 10 classes), ``make_classification(5000,
@@ -52,11 +52,16 @@ def main(argv: list[str] | None = None) -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="digits and additive only")
     ap.add_argument("--evaluations", type=int, default=15000)
+    ap.add_argument("--problems", default="digits,5000x40,20000x10",
+                    help="which problems, by a part of their names (comma-separated)")
     args = ap.parse_args(argv)
     methods = METHODS[:1] if args.quick else METHODS
     print(f"{'problem':20s} {'model':22s} {'mining':>7s} {'prescr':>7s} {'genetic':>8s} {'fit':>7s} "
           f"{'mine+pre':>8s} {'x forest':>8s} {'accuracy':>8s}   rules mined/screened/selected")
+    wanted = args.problems.split(",")
     for name, (X, y) in problems(args.quick):
+        if not any(w in name for w in wanted):
+            continue
         train, test = next(StratifiedKFold(5, shuffle=True, random_state=0).split(X, y))
         forest = RandomForestClassifier(random_state=0)
         cpu = time.process_time()
