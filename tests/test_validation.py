@@ -13,7 +13,6 @@ The folds of a dataset run two at a time (joblib); the fits are shared by the te
 
 from __future__ import annotations
 
-import os
 from functools import cache
 from pathlib import Path
 
@@ -107,16 +106,9 @@ def test_no_glass_class_is_left_without_candidate_rules():
 
 
 GLASS_BELOW_TREE = pytest.mark.xfail(strict=True, reason=(
-    "measured on these folds: FARC-HD additive 64.9 %, the tree 71.5 %; open in the classifier (issue 11, "
+    "measured on these folds: FARC-HD additive 64.0 %, the tree 71.5 %; open in the classifier (issue 11, "
     "item 2), a strict xfail so that the fix shows"))
-
-
-# digits at default parameters: even with the fast mining, a fold job took about 2 minutes of wall time on our
-# shared 2-core machine (5 folds: 3-6 more minutes), too much for the suite's 15 minutes on 2 cores;
-# FOLDSWEEP_VALIDATE_DIGITS=1 runs it
-DIGITS_TOO_SLOW = pytest.mark.skipif(os.environ.get("FOLDSWEEP_VALIDATE_DIGITS") != "1", reason=(
-    "digits at defaults takes minutes per fold job; set FOLDSWEEP_VALIDATE_DIGITS=1 to run it"))
-MARKS = {"glass": GLASS_BELOW_TREE, "digits": DIGITS_TOO_SLOW}
+MARKS = {"glass": GLASS_BELOW_TREE}
 
 
 @pytest.mark.parametrize("name", [pytest.param(n, marks=MARKS[n]) if n in MARKS else n for n in BUILTINS])
