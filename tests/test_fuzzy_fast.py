@@ -99,9 +99,8 @@ def test_fast_mining_equals_straightforward(case, max_conf, min_conf):
     np.testing.assert_allclose(fast.outside, outside, rtol=1e-12, atol=1e-12)
 
 
-@pytest.mark.parametrize("case", range(2))
-@pytest.mark.parametrize("cover_limit", [1, 2, 3])
-def test_fast_prescreening_equals_straightforward(case, cover_limit):
+def _mined_and_selected(case, cover_limit):
+    """Memberships, mined rules and the straightforward prescreening's selection on a test problem."""
     X, y, nominal, labels = list(_problems())[case]
     p = build_partition(X, nominal, labels)
     M = memberships(p, X)
@@ -110,6 +109,13 @@ def test_fast_prescreening_equals_straightforward(case, cover_limit):
     for c in range(3):
         idx = np.flatnonzero(rules.classes == c)
         expected.extend(idx[reference_prescreening(matching_degrees(M, rules.items[idx]), y == c, cover_limit)])
+    return M, y, rules, expected
+
+
+@pytest.mark.parametrize("case", range(2))
+@pytest.mark.parametrize("cover_limit", [1, 2, 3])
+def test_fast_prescreening_equals_straightforward(case, cover_limit):
+    M, y, rules, expected = _mined_and_selected(case, cover_limit)
     assert len(expected) > 5
     # with the miner's sums (as the classifier calls it), and with those formed by prescreen itself
     assert list(prescreen(M, rules.items, rules.classes, y, cover_limit, rules.outside, rules.inside)) == expected
@@ -123,14 +129,7 @@ def test_prescreening_with_every_rule_at_once_equals_straightforward(case, monke
     from workers.fuzzy import prescreen as ps
 
     monkeypatch.setattr(ps._Lazy, "MANY", 1)
-    X, y, nominal, labels = list(_problems())[case]
-    p = build_partition(X, nominal, labels)
-    M = memberships(p, X)
-    rules = mine_rules(M, p.item_var, y, 3, 0.05, 0.8, 3)
-    expected = []
-    for c in range(3):
-        idx = np.flatnonzero(rules.classes == c)
-        expected.extend(idx[reference_prescreening(matching_degrees(M, rules.items[idx]), y == c, 2)])
+    M, y, rules, expected = _mined_and_selected(case, 2)
     assert list(ps.prescreen(M, rules.items, rules.classes, y, 2, rules.outside, rules.inside)) == expected
 
 
