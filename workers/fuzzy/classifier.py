@@ -391,9 +391,10 @@ class _Fitness:
 
         Most of a contested example's classes have no rule firing (in the
         genetic stage on digits, 3 % of the stacked degrees are non-zero):
-        their vectors integrate to exactly 0 and are left out. The others
-        keep the zero-padded width of the whole batch, so that each vector
-        is sorted and summed exactly as in :meth:`_integrate` (the same
+        their vectors integrate to exactly 0 and are left out; the others are
+        formed class by class, only for the examples where the class fires.
+        They keep the zero-padded width of the whole batch, so that each
+        vector is sorted and summed exactly as in :meth:`_integrate` (the same
         values bit-for-bit; ``tests/test_fuzzy_fast.py`` compares them).
         For the measures of ``|A|`` the Choquet weights are computed once
         per chromosome and class and gathered per vector.
@@ -402,16 +403,20 @@ class _Fitness:
 
         C = self.n_classes
         est = self.est
-        vectors, fired, owner = [], [], []
+        vectors, owner, cls, places = [], [], [], []
         for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
             if not len(idx):
                 continue
-            cube = np.zeros((len(idx), C * width))
-            cube[:, cube_slots(self.classes[sel], counts, width)] = degrees.T
             fire = scores[idx] > 0  # a sum of non-negative degrees is positive iff one is
-            vectors.append(cube.reshape(len(idx), C, width)[fire])
-            fired.append(fire)
-            owner.append(np.full(len(vectors[-1]), j))
+            start = np.cumsum(counts) - counts  # the selected rules come class by class
+            for c in np.flatnonzero(fire.any(axis=0)):
+                rows = np.flatnonzero(fire[:, c])
+                vec = np.zeros((len(rows), width))  # class c's rules in order, zero-padded: as in the cube
+                vec[:, : counts[c]] = degrees[start[c]: start[c] + counts[c]][:, rows].T
+                vectors.append(vec)
+                owner.append(np.full(len(rows), j))
+                cls.append(np.full(len(rows), c))
+                places.append((scores, idx[rows], c))
         if vectors:
             x = np.concatenate(vectors)
             if est.measure == "sugeno_lambda":
@@ -427,18 +432,12 @@ class _Fitness:
                 if est.measure == "power":
                     params["q"] = q
                 weights = fm.choquet_weights(est.measure, width, **params)
-                cls = np.concatenate([np.nonzero(f)[1] for f in fired])
-                values = fm.choquet_by_weights(x, weights[np.concatenate(owner), cls])
-        at = 0
-        f = 0
+                values = fm.choquet_by_weights(x, weights[np.concatenate(owner), np.concatenate(cls)])
+            at = 0
+            for scores, rows, c in places:  # a contested example's classes that do not fire stay 0
+                scores[rows, c] = values[at: at + len(rows)]
+                at += len(rows)
         for j, (k, q_k, sel, scores, idx, degrees, counts) in enumerate(pending):
-            if len(idx):
-                block = np.zeros((len(idx), C))
-                fire = fired[f]
-                block[fire] = values[at: at + np.count_nonzero(fire)]
-                at += np.count_nonzero(fire)
-                f += 1
-                scores[idx] = block
             accuracy[k] = self._accuracy(scores)
 
     def _accuracy(self, scores: np.ndarray) -> float:
