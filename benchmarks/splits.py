@@ -25,21 +25,18 @@ from joblib import Parallel, delayed
 from sweep.datasets import Dataset, load_dataset
 from sweep.folds import Fold, compute_folds
 from sweep.spec import FoldScheme
-from workers.job import Job, job_params
-from workers.metrics import accuracy
+from workers.job import Job, run_job
 from workers.registry import get_worker
 
 
 def fold_accuracy(worker_name: str, params: dict, data: Dataset, fold: Fold, seed: int) -> float:
-    """Test accuracy of one fold job, built as a study builds it."""
-    worker = get_worker(worker_name)
+    """Test accuracy of one fold job, run as a study runs it (:func:`workers.job.run_job`)."""
     job = Job(key="splits", worker=worker_name, params=params, dataset=data.name, fingerprint=data.fingerprint,
               repeat=fold.repeat, fold=fold.fold, test_index=fold.test_index, folds_seed=seed)
-    estimator = worker.build(job_params(worker, job), data)
-    test = np.zeros(data.n_samples, dtype=bool)
-    test[fold.test_index] = True
-    estimator.fit(data.X[~test], data.y[~test])
-    return accuracy(data.y[test], estimator.predict(data.X[test]))
+    result = run_job(job, data)
+    if not result.ok:
+        raise SystemExit(f"{worker_name} failed on seed {seed}, fold {fold.fold}:\n{result.error}")
+    return result.accuracy
 
 
 def split_means(worker_name: str, overrides: dict, data: Dataset, k: int, seeds: int, n_jobs: int) -> np.ndarray:
